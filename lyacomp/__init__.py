@@ -1,0 +1,43 @@
+"""lyacomp: compile a symbolic model into C that classifies Hopf onsets.
+
+Public API: :func:`load_model`, :class:`Model`, :func:`compile`, :class:`Evaluator`,
+:class:`HopfResult`, :class:`BatchResult`, :class:`Status`, :class:`Criticality`.
+"""
+
+from ._version import __version__
+from .config import BuildConfig
+from .errors import (
+    BuildError,
+    CompilerNotFoundError,
+    EvaluationError,
+    LyacompError,
+    ModelError,
+    StudyError,
+)
+from .model import Model, load_model
+from .pipeline import compile_model as compile
+from .pipeline import generate
+from .runtime import CAUTION, BatchResult, Evaluator, HopfResult, Tolerances
+from .status import Criticality, Status
+
+__all__ = [
+    "CAUTION",
+    "BatchResult",
+    "BuildConfig",
+    "BuildError",
+    "CompilerNotFoundError",
+    "Criticality",
+    "EvaluationError",
+    "Evaluator",
+    "HopfResult",
+    "LyacompError",
+    "Model",
+    "ModelError",
+    "Status",
+    "StudyError",
+    "Tolerances",
+    "__version__",
+    "compile",
+    "generate",
+    "load_model",
+]

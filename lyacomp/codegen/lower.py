@@ -1,0 +1,162 @@
+"""Stage 3: lowering derivatives to finished C fragments for the templates.
+
+Every symbolic quantity becomes a :class:`Block`: common subexpressions are pulled
+out into named temporaries, then each output is assigned. User names never reach
+the C text: state j is ``x[j]`` and parameter k is ``p[k]``; comments in the
+generated file map the indices back to the names.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+
+import sympy as sp
+
+from ..derive import Derivatives
+from .printer import ccode
+
+
+@dataclass(frozen=True)
+class Statement:
+    """``target = code;`` in C."""
+
+    target: str
+    code: str
+
+
+@dataclass(frozen=True)
+class Block:
+    """Straight-line C: temporaries first, then the outputs."""
+
+    temporaries: tuple[Statement, ...]
+    outputs: tuple[Statement, ...]
+
+    @property
+    def uses(self) -> str:
+        """All code text, to tell which inputs a function body reads."""
+        return " ".join(s.code for s in self.temporaries + self.outputs)
+
+
+@dataclass(frozen=True)
+class Accumulation:
+    """``target += factor * (product);`` lines for the multilinear forms."""
+
+    target: str
+    factor: str
+    terms: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Lowered:
+    """Everything the templates need, already printed as C."""
+
+    n: int
+    n_params: int
+    bif_index: int
+    f_jac: Block
+    rhs: Block
+    mu_terms: Block
+    second: Block
+    third: Block
+    n_second: int
+    n_third: int
+    b_form: tuple[Accumulation, ...]
+    c_form: tuple[Accumulation, ...]
+    hess_dir: tuple[Accumulation, ...]
+    critical_value: Block | None
+    equilibrium: Block | None
+
+
+def lower_block(
+    assignments: list[tuple[str, sp.Expr]], subs: dict[sp.Symbol, sp.Symbol], temp_prefix: str
+) -> Block:
+    """CSE over all assignments together, then print to C."""
+    if not assignments:
+        return Block((), ())
+    exprs = [expr.xreplace(subs) for _, expr in assignments]
+    temps_sym = sp.numbered_symbols(temp_prefix)
+    replacements, reduced = sp.cse(exprs, symbols=temps_sym, optimizations="basic")
+    temporaries = tuple(Statement(str(sym), ccode(value)) for sym, value in replacements)
+    outputs = tuple(
+        Statement(target, ccode(value)) for (target, _), value in zip(assignments, reduced)
+    )
+    return Block(temporaries, outputs)
+
+
+def _distinct_orders(idx: tuple[int, ...]) -> list[tuple[int, ...]]:
+    return sorted(set(itertools.permutations(idx)))
+
+
+def lower(der: Derivatives) -> Lowered:
+    """Print every generated function body of the model."""
+    model = der.model
+    n = len(model.states)
+    subs: dict[sp.Symbol, sp.Symbol] = {}
+    for j, s in enumerate(model.states):
+        subs[s] = sp.Symbol(f"x[{j}]", real=True)
+    for k, s in enumerate(model.parameters):
+        subs[s] = sp.Symbol(f"p[{k}]", real=True)
+    bif_index = model.parameters.index(model.bifurcation) if model.bifurcation is not None else -1
+
+    rhs_assign = [(f"f[{i}]", e) for i, e in enumerate(model.rhs)]
+    jac_assign = [(f"jac[{i * n + j}]", e) for (i, j), e in sorted(der.jacobian.items())]
+    f_jac = lower_block(rhs_assign + jac_assign, subs, "t")
+    rhs = lower_block(rhs_assign, subs, "t")
+    mu_assign = [(f"f_mu[{i}]", e) for i, e in sorted(der.f_mu.items())]
+    mu_assign += [(f"j_mu[{i * n + j}]", e) for (i, j), e in sorted(der.j_mu.items())]
+    mu_terms = lower_block(mu_assign, subs, "t")
+
+    second_keys = sorted(der.second)
+    third_keys = sorted(der.third)
+    second = lower_block(
+        [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)], subs, "t"
+    )
+    third = lower_block(
+        [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)], subs, "t"
+    )
+
+    b_form = []
+    hess_dir = []
+    for k, (i, j1, j2) in enumerate(second_keys):
+        orders = _distinct_orders((j1, j2))
+        b_form.append(
+            Accumulation(f"out[{i}]", f"d2[{k}]", tuple(f"u[{a}] * v[{b}]" for a, b in orders))
+        )
+        # H(w)_ij = sum_l F_ijl w_l: entry (j, l) feeds column j with w_l and column l with w_j.
+        for a, b in orders:
+            hess_dir.append(Accumulation(f"h[{i * n + a}]", f"d2[{k}]", (f"w[{b}]",)))
+    c_form = []
+    for k, (i, j1, j2, j3) in enumerate(third_keys):
+        orders = _distinct_orders((j1, j2, j3))
+        c_form.append(
+            Accumulation(
+                f"out[{i}]", f"d3[{k}]", tuple(f"u[{a}] * v[{b}] * w[{c}]" for a, b, c in orders)
+            )
+        )
+
+    crit = None
+    if model.critical_value is not None:
+        crit = lower_block([(f"p[{bif_index}]", model.critical_value)], subs, "t")
+    equilibrium = None
+    if model.equilibrium is not None:
+        equilibrium = lower_block(
+            [(f"x[{j}]", e) for j, e in enumerate(model.equilibrium)], subs, "t"
+        )
+    return Lowered(
+        n=n,
+        n_params=len(model.parameters),
+        bif_index=bif_index,
+        f_jac=f_jac,
+        rhs=rhs,
+        mu_terms=mu_terms,
+        second=second,
+        third=third,
+        n_second=len(second_keys),
+        n_third=len(third_keys),
+        b_form=tuple(b_form),
+        c_form=tuple(c_form),
+        hess_dir=tuple(hess_dir),
+        critical_value=crit,
+        equilibrium=equilibrium,
+    )

@@ -1,0 +1,5 @@
+"""Stage 2: symbolic derivation."""
+
+from .derivatives import Derivatives, derive
+
+__all__ = ["Derivatives", "derive"]

@@ -1,0 +1,179 @@
+"""Result objects returned by evaluators."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..status import Criticality, Status
+
+CAUTION = (
+    "Local analysis near onset: l1 describes the cycle born at the Hopf point for small "
+    "|mu - mu0| only. It is no substitute for testing, nor for the codes and licensed "
+    "practice that govern your field."
+)
+
+
+def _number(value: float) -> float | None:
+    return None if math.isnan(value) else float(value)
+
+
+class HopfResult:
+    """The outcome for one parameter set (a view on the C result struct).
+
+    Numbers are NaN unless ``status == "ok"``.
+    """
+
+    __slots__ = ("_raw", "_states", "_bifurcation")
+
+    def __init__(self, raw: Any, states: tuple[str, ...], bifurcation: str | None):
+        self._raw = raw
+        self._states = states
+        self._bifurcation = bifurcation
+
+    @property
+    def status(self) -> str:
+        return Status(self._raw.status).label
+
+    @property
+    def status_code(self) -> Status:
+        return Status(self._raw.status)
+
+    @property
+    def ok(self) -> bool:
+        return self._raw.status == 0
+
+    @property
+    def l1(self) -> float:
+        """First Lyapunov coefficient (negative: supercritical, positive: subcritical)."""
+        return self._raw.l1
+
+    @property
+    def omega(self) -> float:
+        return self._raw.omega
+
+    @property
+    def period(self) -> float:
+        return self._raw.period
+
+    @property
+    def critical_value(self) -> float:
+        return self._raw.critical_value
+
+    @property
+    def transversality(self) -> float:
+        return self._raw.transversality
+
+    @property
+    def bifurcation_parameter(self) -> str | None:
+        return self._bifurcation
+
+    @property
+    def equilibrium(self) -> dict[str, float]:
+        return {s: self._raw.equilibrium[i] for i, s in enumerate(self._states)}
+
+    @property
+    def amplitude(self) -> dict[str, float]:
+        """K_j: state j oscillates with amplitude K_j * sqrt(|mu - mu0|) near onset."""
+        return {s: self._raw.amplitude[i] for i, s in enumerate(self._states)}
+
+    @property
+    def cycle_side(self) -> str | None:
+        """'above' or 'below' mu0: where the cycle exists."""
+        return {1: "above", -1: "below"}.get(self._raw.cycle_side)
+
+    @property
+    def criticality(self) -> str | None:
+        """'supercritical', 'subcritical', 'degenerate', or None when not ok."""
+        return Criticality(self._raw.criticality).label
+
+    @property
+    def iterations(self) -> int:
+        return self._raw.iterations
+
+    @property
+    def explanation(self) -> str:
+        return self.status_code.explanation
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready form (NaN becomes None)."""
+        amplitude = {k: _number(v) for k, v in self.amplitude.items()}
+        return {
+            "status": self.status,
+            "l1": _number(self.l1),
+            "omega": _number(self.omega),
+            "critical_value": _number(self.critical_value),
+            "bifurcation_parameter": self._bifurcation,
+            "equilibrium": {k: _number(v) for k, v in self.equilibrium.items()},
+            "transversality": _number(self.transversality),
+            "amplitude": amplitude,
+            "cycle_side": self.cycle_side,
+            "period": _number(self.period),
+            "criticality": self.criticality,
+        }
+
+    def __repr__(self) -> str:
+        if not self.ok:
+            return f"HopfResult(status={self.status!r})"
+        return (
+            f"HopfResult(status='ok', l1={self.l1:.6g}, omega={self.omega:.6g}, "
+            f"critical_value={self.critical_value:.6g}, criticality={self.criticality!r})"
+        )
+
+
+@dataclass(frozen=True)
+class BatchResult:
+    """Outcomes for many parameter sets, as numpy arrays of the input's broadcast shape.
+
+    Float arrays are NaN where ``status != 0``; ``equilibrium`` and ``amplitude`` have a
+    trailing axis over the states.
+    """
+
+    states: tuple[str, ...]
+    status: np.ndarray
+    criticality: np.ndarray
+    cycle_side: np.ndarray
+    l1: np.ndarray
+    omega: np.ndarray
+    period: np.ndarray
+    critical_value: np.ndarray
+    transversality: np.ndarray
+    equilibrium: np.ndarray
+    amplitude: np.ndarray
+
+    def __len__(self) -> int:
+        return int(self.status.size)
+
+    @property
+    def shape(self) -> tuple[int, ...]:
+        return self.status.shape
+
+    @property
+    def ok(self) -> np.ndarray:
+        return self.status == Status.OK
+
+    @property
+    def subcritical(self) -> np.ndarray:
+        return self.criticality == Criticality.SUBCRITICAL
+
+    @property
+    def supercritical(self) -> np.ndarray:
+        return self.criticality == Criticality.SUPERCRITICAL
+
+    def status_counts(self) -> dict[str, int]:
+        """Number of samples per status label (only statuses that occur)."""
+        codes, counts = np.unique(self.status, return_counts=True)
+        return {Status(int(c)).label: int(k) for c, k in zip(codes, counts)}
+
+    def criticality_counts(self) -> dict[str, int]:
+        """Number of samples per criticality name (only those that occur)."""
+        codes, counts = np.unique(self.criticality, return_counts=True)
+        return {Criticality(int(c)).name.lower(): int(k) for c, k in zip(codes, counts)}
+
+    def status_labels(self) -> np.ndarray:
+        """Status labels as an array of strings."""
+        labels = np.array([s.label for s in Status])
+        return labels[self.status]

@@ -1,0 +1,376 @@
+"""Parameter-plane maps of the onset type, and where along a line the onset type switches.
+
+A map evaluates the compiled model once, in a single batch call, at every point of a
+grid over two parameters (the bifurcation parameter is solved for at each point) and
+sorts the points into supercritical, subcritical, degenerate, no Hopf point and solver
+failure. The curve l1 = 0 (degenerate Hopf points) is then located by root finding
+(scipy brentq) on the compiled l1 along every grid line whose neighbouring points
+have l1 of opposite signs, so its accuracy is that of the root finder, not of the grid.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from enum import IntEnum
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from lyacomp.errors import StudyError
+from lyacomp.status import Criticality, Status
+
+
+class PointClass(IntEnum):
+    """What a grid point is, as stored in :attr:`ParameterMap.classes`."""
+
+    NO_HOPF = 0
+    SUPERCRITICAL = 1
+    SUBCRITICAL = 2
+    DEGENERATE = 3
+    SOLVER_FAILURE = 4
+
+    @property
+    def words(self) -> str:
+        return _CLASS_WORDS[self]
+
+
+_CLASS_WORDS = {
+    PointClass.NO_HOPF: "no Hopf point",
+    PointClass.SUPERCRITICAL: "supercritical (soft onset)",
+    PointClass.SUBCRITICAL: "subcritical (hard onset)",
+    PointClass.DEGENERATE: "degenerate (l1 = 0)",
+    PointClass.SOLVER_FAILURE: "solver failure",
+}
+
+#: Statuses that mean the solver could not give an answer (as opposed to answering that
+#: there is no proper Hopf point here).
+SOLVER_FAILURES = frozenset({"no_convergence", "nonfinite_input", "nonfinite_result"})
+
+_CRITICALITY_CLASS = {
+    Criticality.SUPERCRITICAL: PointClass.SUPERCRITICAL,
+    Criticality.SUBCRITICAL: PointClass.SUBCRITICAL,
+    Criticality.DEGENERATE: PointClass.DEGENERATE,
+}
+
+MAX_GRID_POINTS = 4_000_000
+
+
+@dataclass(frozen=True)
+class Axis:
+    """One axis of a map: parameter ``name`` from ``lo`` to ``hi`` in ``n`` points."""
+
+    name: str
+    lo: float
+    hi: float
+    n: int
+
+    def __post_init__(self) -> None:
+        if not (math.isfinite(self.lo) and math.isfinite(self.hi)) or not self.hi > self.lo:
+            raise StudyError(f"axis {self.name}: need finite LO < HI, got {self.lo}..{self.hi}")
+        if self.n < 2:
+            raise StudyError(f"axis {self.name}: need at least 2 points, got {self.n}")
+
+    @classmethod
+    def parse(cls, text: str) -> Axis:
+        """Read ``NAME:LO:HI:N``, e.g. ``k:0.5:2.0:81``."""
+        parts = text.split(":")
+        if len(parts) != 4:
+            raise StudyError(f"axis {text!r}: expected NAME:LO:HI:N, e.g. k:0.5:2.0:81")
+        name, lo, hi, n = parts
+        try:
+            return cls(name.strip(), float(lo), float(hi), int(n))
+        except ValueError:
+            raise StudyError(
+                f"axis {text!r}: LO and HI must be numbers and N an integer (NAME:LO:HI:N)"
+            ) from None
+
+    @property
+    def values(self) -> np.ndarray:
+        return np.linspace(self.lo, self.hi, self.n)
+
+    @property
+    def step(self) -> float:
+        return (self.hi - self.lo) / (self.n - 1)
+
+
+@dataclass
+class ParameterMap:
+    """Result of :func:`parameter_map`. Grids have shape ``(y.n, x.n)``."""
+
+    x: Axis
+    y: Axis
+    fixed: dict[str, float]
+    classes: np.ndarray
+    status: np.ndarray
+    l1: np.ndarray
+    critical_value: np.ndarray
+    omega: np.ndarray
+    status_names: dict[int, str]
+    curve: np.ndarray = field(default_factory=lambda: np.empty((0, 2)))
+    unresolved: int = 0
+
+    def counts(self) -> dict[str, int]:
+        """Number of grid points per class (in words)."""
+        return {c.words: int(np.count_nonzero(self.classes == c)) for c in PointClass}
+
+    def summary(self) -> dict[str, Any]:
+        """JSON-ready description (without the grids)."""
+        return {
+            "x": {"name": self.x.name, "lo": self.x.lo, "hi": self.x.hi, "n": self.x.n},
+            "y": {"name": self.y.name, "lo": self.y.lo, "hi": self.y.hi, "n": self.y.n},
+            "fixed": dict(self.fixed),
+            "counts": self.counts(),
+            "zero_curve_points": int(len(self.curve)),
+            "zero_curve_unresolved_segments": self.unresolved,
+        }
+
+    def save(self, path: str | Path) -> list[Path]:
+        """Write the grid data: ``.npz`` (everything) or ``.csv`` (one row per grid point,
+        plus ``<stem>_zero_curve.csv`` with the located l1 = 0 points). Returns the paths."""
+        path = Path(path)
+        if path.suffix == ".npz":
+            np.savez_compressed(
+                path,
+                x=self.x.values,
+                y=self.y.values,
+                x_name=self.x.name,
+                y_name=self.y.name,
+                classes=self.classes,
+                class_names=np.array([c.words for c in PointClass]),
+                status=self.status,
+                l1=self.l1,
+                critical_value=self.critical_value,
+                omega=self.omega,
+                zero_curve=self.curve,
+            )
+            return [path]
+        if path.suffix != ".csv":
+            raise StudyError(f"grid data file {path}: use a .csv or .npz suffix")
+        xx, yy = np.meshgrid(self.x.values, self.y.values)
+        with path.open("w", newline="") as fh:
+            out = csv.writer(fh)
+            out.writerow(
+                [self.x.name, self.y.name, "class", "status", "l1", "critical_value", "omega"]
+            )
+            for idx in np.ndindex(self.classes.shape):
+                out.writerow(
+                    [
+                        repr(float(xx[idx])),
+                        repr(float(yy[idx])),
+                        PointClass(int(self.classes[idx])).words,
+                        self.status_names.get(int(self.status[idx]), str(int(self.status[idx]))),
+                        repr(float(self.l1[idx])),
+                        repr(float(self.critical_value[idx])),
+                        repr(float(self.omega[idx])),
+                    ]
+                )
+        curve_path = path.with_name(path.stem + "_zero_curve.csv")
+        with curve_path.open("w", newline="") as fh:
+            out = csv.writer(fh)
+            out.writerow([self.x.name, self.y.name])
+            out.writerows([[repr(float(a)), repr(float(b))] for a, b in self.curve])
+        return [path, curve_path]
+
+
+@dataclass(frozen=True)
+class Switch:
+    """A value of a parameter where l1 changes sign along a line."""
+
+    parameter: str
+    value: float
+    critical_value: float
+    omega: float
+    before: str
+    after: str
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "parameter": self.parameter,
+            "value": self.value,
+            "critical_value": self.critical_value,
+            "omega": self.omega,
+            "before": self.before,
+            "after": self.after,
+        }
+
+
+_STATUS_NAMES = {int(s): s.label for s in Status}
+_FAILURE = np.array(
+    [_STATUS_NAMES.get(c) in SOLVER_FAILURES for c in range(max(_STATUS_NAMES) + 1)]
+)
+
+
+def classify(status: np.ndarray, criticality: np.ndarray) -> np.ndarray:
+    """Grid classes (:class:`PointClass` codes, int8) from batch status and criticality."""
+    status = np.asarray(status)
+    classes = np.full(status.shape, PointClass.NO_HOPF, dtype=np.int8)
+    known = (status >= 0) & (status < _FAILURE.size)
+    classes[known & _FAILURE[np.clip(status, 0, _FAILURE.size - 1)]] = PointClass.SOLVER_FAILURE
+    ok = status == Status.OK
+    for code, cls in _CRITICALITY_CLASS.items():
+        classes[ok & (criticality == code)] = cls
+    return classes
+
+
+def _check_names(ev: Any, names: list[str]) -> None:
+    for name in names:
+        if name not in ev.parameters:
+            raise StudyError(
+                f"unknown parameter {name!r}; the model has {', '.join(ev.parameters)}"
+            )
+        if name == ev.bifurcation:
+            raise StudyError(
+                f"{name!r} is the bifurcation parameter, which is solved for at every point; "
+                "map over other parameters"
+            )
+    if ev.bifurcation is None:
+        raise StudyError(
+            "a map needs a model with a bifurcation parameter (the onset is located at every point)"
+        )
+
+
+class _NoHopfHere(Exception):
+    """The evaluator found no Hopf point inside a bracket (root finding abandoned)."""
+
+
+def _l1_along(ev: Any, base: Mapping[str, float], name: str, guess: float):
+    """l1 as a function of one parameter, the other values fixed; the bifurcation parameter
+    starts from ``guess`` (the critical value at a bracket end keeps Newton on that branch)."""
+
+    def l1(value: float) -> float:
+        res = ev(**{**base, name: value, ev.bifurcation: guess})
+        if not res.ok:
+            raise _NoHopfHere
+        return float(res.l1)
+
+    return l1
+
+
+def _bracket_root(
+    ev: Any, base: Mapping[str, float], name: str, lo: float, hi: float, guess: float
+) -> float | None:
+    from scipy.optimize import brentq
+
+    try:
+        return float(
+            brentq(
+                _l1_along(ev, base, name, guess),
+                lo,
+                hi,
+                xtol=1e-13 * max(1.0, abs(lo), abs(hi)),
+                rtol=4 * np.finfo(float).eps,
+            )
+        )
+    except (_NoHopfHere, ValueError):
+        # ValueError: the compiled l1 at the bracket ends no longer differs in sign
+        # (a different Hopf branch was found from this guess)
+        return None
+
+
+def _sign_changes(l1: np.ndarray) -> np.ndarray:
+    """Indices i with finite l1[i], l1[i+1] of strictly opposite sign (along the last axis)."""
+    a, b = l1[..., :-1], l1[..., 1:]
+    with np.errstate(invalid="ignore"):
+        return np.isfinite(a) & np.isfinite(b) & (a * b < 0)
+
+
+def parameter_map(
+    ev: Any,
+    x: Axis,
+    y: Axis,
+    fixed: Mapping[str, float] | None = None,
+    *,
+    locate_curve: bool = True,
+    threads: int | None = None,
+) -> ParameterMap:
+    """Classify every point of the ``x`` by ``y`` grid with one batch call, then locate the
+    l1 = 0 curve by brentq along the grid lines where l1 changes sign.
+
+    ``fixed`` sets other parameters (default: nominal values).
+    """
+    fixed = {k: float(v) for k, v in (fixed or {}).items()}
+    _check_names(ev, [x.name, y.name, *fixed])
+    if x.name == y.name:
+        raise StudyError(f"the two axes must be different parameters (both are {x.name!r})")
+    if x.n * y.n > MAX_GRID_POINTS:
+        raise StudyError(f"grid of {x.n * y.n} points is too large (at most {MAX_GRID_POINTS})")
+    xx, yy = np.meshgrid(x.values, y.values)
+    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
+    shape = xx.shape
+    status = np.asarray(batch.status).reshape(shape)
+    pmap = ParameterMap(
+        x=x,
+        y=y,
+        fixed=fixed,
+        classes=classify(status, np.asarray(batch.criticality).reshape(shape)),
+        status=status,
+        l1=np.asarray(batch.l1, float).reshape(shape),
+        critical_value=np.asarray(batch.critical_value, float).reshape(shape),
+        omega=np.asarray(batch.omega, float).reshape(shape),
+        status_names=dict(_STATUS_NAMES),
+    )
+    if locate_curve:
+        _locate_zero_curve(ev, pmap)
+    return pmap
+
+
+def _locate_zero_curve(ev: Any, pmap: ParameterMap) -> None:
+    points: list[tuple[float, float]] = []
+    unresolved = 0
+    # rows: y fixed, root in x; columns: x fixed, root in y
+    for along, across, l1, crit in (
+        (pmap.x, pmap.y, pmap.l1, pmap.critical_value),
+        (pmap.y, pmap.x, pmap.l1.T, pmap.critical_value.T),
+    ):
+        grid_along = along.values
+        grid_across = across.values
+        for j, i in zip(*np.nonzero(_sign_changes(l1)), strict=True):
+            base = {**pmap.fixed, across.name: float(grid_across[j])}
+            root = _bracket_root(
+                ev, base, along.name, grid_along[i], grid_along[i + 1], float(crit[j, i])
+            )
+            if root is None:
+                unresolved += 1
+                continue
+            point = {along.name: root, across.name: float(grid_across[j])}
+            points.append((point[pmap.x.name], point[pmap.y.name]))
+    pmap.curve = np.array(points, float).reshape(-1, 2)
+    pmap.unresolved = unresolved
+
+
+def find_switches(
+    ev: Any,
+    name: str,
+    lo: float,
+    hi: float,
+    n: int = 201,
+    fixed: Mapping[str, float] | None = None,
+    *,
+    threads: int | None = None,
+) -> list[Switch]:
+    """Where along ``name`` in [lo, hi] does l1 change sign? One batch call on ``n`` points,
+    then brentq inside every bracket; each switch carries its critical value and frequency."""
+    axis = Axis(name, float(lo), float(hi), int(n))
+    fixed = {k: float(v) for k, v in (fixed or {}).items()}
+    _check_names(ev, [name, *fixed])
+    values = axis.values
+    batch = ev.batch({**fixed, name: values}, threads=threads)
+    l1 = np.asarray(batch.l1, float)
+    crit = np.asarray(batch.critical_value, float)
+    switches = []
+    for i in np.flatnonzero(_sign_changes(l1)):
+        root = _bracket_root(ev, fixed, name, values[i], values[i + 1], float(crit[i]))
+        if root is None:
+            continue
+        res = ev(**{**fixed, name: root, ev.bifurcation: float(crit[i])})
+        before, after = (
+            ("supercritical", "subcritical") if l1[i] < 0 else ("subcritical", "supercritical")
+        )
+        switches.append(
+            Switch(name, root, float(res.critical_value), float(res.omega), before, after)
+        )
+    return switches

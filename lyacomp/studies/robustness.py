@@ -1,0 +1,591 @@
+"""Monte Carlo robustness: how likely is a hard (subcritical) onset under uncertainty?
+
+The study streams chunks of samples through ``Evaluator.batch``. Memory stays
+bounded whatever the sample count: per chunk the draws and outputs
+(``chunk_size`` rows), plus a uniform random subset of at most ``keep`` ok samples
+(bottom-k on a random key) on which quantiles and the driver ranking are computed;
+below ``keep`` samples that subset is every ok sample and the quantiles are exact.
+Counts (status breakdown, subcritical fraction) always cover every sample.
+
+Reproducibility: chunk ``i`` draws from its own generator seeded by ``(seed, i)``
+and the evaluator is deterministic per sample, so a seed fixes every bit of the
+result, whatever the thread count. The chunk size is part of the recipe (with
+Latin hypercube sampling each chunk is a design of its own).
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import os
+import shutil
+import signal
+import sys
+import tempfile
+import threading
+import zipfile
+from collections.abc import Iterator, Mapping, Sequence
+from contextlib import contextmanager
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from lyacomp.errors import StudyError
+from lyacomp.status import Criticality, Status
+from lyacomp.studies.uncertainty import (
+    METHODS,
+    UncertaintySpec,
+    chunk_rng,
+    draw_scores,
+    parse_uncertainty,
+)
+
+DEFAULT_CHUNK = 1 << 16
+DEFAULT_KEEP = 1_000_000
+DEFAULT_LEVELS = (0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99)
+SCALAR_OUTPUTS = ("l1", "critical_value", "omega")
+
+
+def wilson_interval(successes: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
+    """Wilson score interval for a binomial proportion.
+
+    Wilson, E. B. (1927), "Probable inference, the law of succession, and
+    statistical inference", J. Amer. Statist. Assoc. 22:209-212. With no trials
+    nothing is known and the interval is [0, 1].
+    """
+    if not 0.0 < confidence < 1.0:
+        raise StudyError(f"confidence must lie strictly between 0 and 1; got {confidence}")
+    if trials < 0 or not 0 <= successes <= max(trials, 0):
+        raise StudyError(f"need 0 <= successes <= trials; got {successes} of {trials}")
+    if trials == 0:
+        return 0.0, 1.0
+    from scipy.special import ndtri
+
+    z = float(ndtri(0.5 + confidence / 2.0))
+    p = successes / trials
+    z2n = z * z / trials
+    centre = (p + z2n / 2.0) / (1.0 + z2n)
+    half = z / (1.0 + z2n) * math.sqrt(p * (1.0 - p) / trials + z2n / (4.0 * trials))
+    # Clamp rounding: at p = 0 or 1 the interval touches the boundary exactly.
+    return max(0.0, centre - half), min(1.0, centre + half)
+
+
+@dataclass(frozen=True)
+class Driver:
+    """How strongly one uncertain parameter drives an output.
+
+    ``spearman``: rank correlation with the output. ``srrc``: standardized rank
+    regression coefficient (all parameters together, so correlated inputs share
+    less of the credit). The sign says the direction: positive raises the output.
+    """
+
+    name: str
+    spearman: float
+    srrc: float
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "parameter": self.name,
+            "spearman": _jsonable(self.spearman),
+            "srrc": _jsonable(self.srrc),
+        }
+
+
+def average_ranks(values: np.ndarray) -> np.ndarray:
+    """Ranks 1..n of a 1-D array; tied values share the average of their ranks."""
+    order = np.argsort(values)
+    ordered = values[order]
+    first = np.r_[True, ordered[1:] != ordered[:-1]]
+    starts = np.flatnonzero(first)
+    sizes = np.diff(np.r_[starts, len(values)])
+    ranks = np.empty(len(values))
+    ranks[order] = np.repeat(starts + (sizes + 1) / 2.0, sizes)
+    return ranks
+
+
+def rank_drivers(inputs: np.ndarray, output: np.ndarray, names: Sequence[str]) -> list[Driver]:
+    """Rank the columns of ``inputs`` (n, d) by how strongly they drive ``output``.
+
+    Sorted by |srrc|, largest first; parameters without spread (or too few
+    samples to fit) get NaN and come last.
+    """
+    inputs = np.asarray(inputs, dtype=float)
+    output = np.asarray(output, dtype=float)
+    n, d = inputs.shape
+    if n < d + 2:
+        drivers = [Driver(name, math.nan, math.nan) for name in names]
+        return drivers
+    ranks = np.column_stack([average_ranks(c) for c in (*inputs.T, output)])
+    ranks -= ranks.mean(axis=0)
+    spread = np.sqrt((ranks**2).mean(axis=0))
+    live = spread > 0.0
+    std = np.zeros_like(ranks)
+    std[:, live] = ranks[:, live] / spread[live]
+    rho = np.full(d, math.nan)
+    srrc = np.full(d, math.nan)
+    if live[-1]:
+        rho[live[:d]] = (std[:, :d][:, live[:d]] * std[:, -1:]).mean(axis=0)
+        coef, *_ = np.linalg.lstsq(std[:, :d][:, live[:d]], std[:, -1], rcond=None)
+        srrc[live[:d]] = coef
+    drivers = [Driver(n, float(r), float(s)) for n, r, s in zip(names, rho, srrc, strict=True)]
+    return sorted(drivers, key=lambda dr: -abs(dr.srrc) if math.isfinite(dr.srrc) else math.inf)
+
+
+class _Reservoir:
+    """Uniform random subset of at most ``capacity`` rows: keep the smallest keys."""
+
+    def __init__(self, capacity: int, width: int):
+        self.capacity = capacity
+        self.keys = np.empty(capacity)
+        self.rows = np.empty((capacity, width))
+        self.size = 0
+        self.threshold = math.inf
+        self._pending_keys: list[np.ndarray] = []
+        self._pending_rows: list[np.ndarray] = []
+        self._pending = 0
+
+    def offer(self, keys: np.ndarray, rows: np.ndarray) -> None:
+        free = min(self.capacity - self.size, len(keys))
+        if free:
+            self.keys[self.size : self.size + free] = keys[:free]
+            self.rows[self.size : self.size + free] = rows[:free]
+            self.size += free
+            keys, rows = keys[free:], rows[free:]
+            if self.size == self.capacity:
+                self.threshold = float(self.keys.max())
+        if len(keys) == 0:
+            return
+        # Only keys below the current largest kept key can ever enter.
+        mask = keys < self.threshold
+        self._pending_keys.append(keys[mask])
+        self._pending_rows.append(rows[mask])
+        self._pending += int(mask.sum())
+        if self._pending > self.capacity // 4:
+            self._merge()
+
+    def _merge(self) -> None:
+        if not self._pending:
+            return
+        new_keys = np.concatenate(self._pending_keys)
+        new_rows = np.concatenate(self._pending_rows)
+        self._pending_keys, self._pending_rows, self._pending = [], [], 0
+        all_keys = np.concatenate([self.keys, new_keys])
+        chosen = np.argpartition(all_keys, self.capacity - 1)[: self.capacity]
+        incoming = np.sort(chosen[chosen >= self.capacity]) - self.capacity
+        kept = np.zeros(self.capacity, dtype=bool)
+        kept[chosen[chosen < self.capacity]] = True
+        evicted = np.flatnonzero(~kept)
+        self.keys[evicted] = new_keys[incoming]
+        self.rows[evicted] = new_rows[incoming]
+        self.threshold = float(self.keys.max())
+
+    def contents(self) -> np.ndarray:
+        self._merge()
+        return self.rows[: self.size]
+
+
+@dataclass
+class RobustnessResult:
+    """What a robustness study found. ``samples`` counts the samples evaluated."""
+
+    model: str
+    samples: int
+    requested: int
+    interrupted: bool
+    seed: int
+    method: str
+    chunk_size: int
+    uncertain: tuple[str, ...]
+    distributions: list[str]
+    fixed: dict[str, float]
+    status_counts: dict[str, int]
+    ok: int
+    subcritical: int
+    degenerate: int
+    confidence: float
+    interval: tuple[float, float]
+    quantiles: dict[str, dict[str, float]]
+    quantile_basis: int
+    ranking: list[Driver]
+    kept: dict[str, np.ndarray] = field(repr=False)
+
+    @property
+    def probability_subcritical(self) -> float:
+        """Fraction of ok samples with a hard (subcritical) onset; NaN if none is ok."""
+        return self.subcritical / self.ok if self.ok else math.nan
+
+    @property
+    def fraction_not_ok(self) -> float:
+        return 1.0 - self.ok / self.samples if self.samples else math.nan
+
+    def to_dict(self) -> dict[str, Any]:
+        """JSON-ready summary (NaN becomes null)."""
+        return {
+            "model": self.model,
+            "samples": self.samples,
+            "requested": self.requested,
+            "interrupted": self.interrupted,
+            "seed": self.seed,
+            "method": self.method,
+            "chunk_size": self.chunk_size,
+            "uncertainty": self.distributions,
+            "fixed": self.fixed,
+            "ok": self.ok,
+            "subcritical": self.subcritical,
+            "degenerate": self.degenerate,
+            "probability_subcritical": _jsonable(self.probability_subcritical),
+            "confidence": self.confidence,
+            "interval": [self.interval[0], self.interval[1]],
+            "fraction_not_ok": _jsonable(self.fraction_not_ok),
+            "status_counts": dict(self.status_counts),
+            "quantiles": {
+                k: {lv: _jsonable(v) for lv, v in q.items()} for k, q in self.quantiles.items()
+            },
+            "quantile_basis": self.quantile_basis,
+            "ranking": [d.to_dict() for d in self.ranking],
+        }
+
+    def summary(self) -> str:
+        """Human-readable report."""
+        lo, hi = self.interval
+        pct = f"{100 * self.confidence:g}%"
+        lines = [
+            f"Robustness of '{self.model}': {self.samples} samples "
+            f"({self.method} sampling, seed {self.seed})"
+        ]
+        if self.interrupted:
+            lines.append(
+                f"  INTERRUPTED after {self.samples} of {self.requested} samples;"
+                " the figures below cover those only"
+            )
+        lines += [f"  {line}" for line in self.distributions]
+        if self.fixed:
+            lines.append("  fixed: " + ", ".join(f"{k}={v:g}" for k, v in self.fixed.items()))
+        lines.append(
+            f"Hard (subcritical) onset: {self.probability_subcritical:.4g} of {self.ok} ok samples"
+            f" ({pct} Wilson interval {lo:.4g} .. {hi:.4g})"
+        )
+        if self.degenerate:
+            lines.append(f"  degenerate (l1 = 0 exactly): {self.degenerate}")
+        not_ok = {k: v for k, v in self.status_counts.items() if k != "ok" and v}
+        lines.append(
+            f"No usable Hopf point: {self.samples - self.ok} samples"
+            + (" (" + ", ".join(f"{k}: {v}" for k, v in not_ok.items()) + ")" if not_ok else "")
+        )
+        basis = (
+            "all ok samples"
+            if self.quantile_basis == self.ok
+            else f"a random subset of {self.quantile_basis} ok samples"
+        )
+        lines.append(f"Quantiles (over {basis}):")
+        levels = list(next(iter(self.quantiles.values()), {}))
+        lines.append("  " + f"{'':<22}" + "".join(f"{lv:>12}" for lv in levels))
+        for name, q in self.quantiles.items():
+            lines.append("  " + f"{name:<22}" + "".join(f"{v:>12.4g}" for v in q.values()))
+        lines.append("What drives l1 (rank regression; + pushes toward hard onset):")
+        for d in self.ranking:
+            lines.append(f"  {d.name:<20} srrc {d.srrc:+.3f}   spearman {d.spearman:+.3f}")
+        lines.append(
+            "Caution: a local, near-onset analysis of the model as written; no substitute "
+            "for testing and for the codes and licensed practice of the field."
+        )
+        return "\n".join(lines)
+
+
+class _CsvStore:
+    """Streams samples to CSV, one chunk at a time; the status is written by name."""
+
+    def __init__(self, path: Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]):
+        self.path, self.n_inputs, self.labels = path, n_inputs, labels
+        self.tmp = path.with_name(f".{path.name}.partial")
+        self.file = self.tmp.open("w", newline="")
+        self.writer = csv.writer(self.file)
+        self.writer.writerow([*columns[:n_inputs], "status", *columns[n_inputs:]])
+
+    def write(self, block: np.ndarray, status: np.ndarray) -> None:
+        text = [[repr(float(v)) for v in row] for row in block.tolist()]
+        names = [self.labels.get(int(c), f"status_{c}") for c in status.tolist()]
+        self.writer.writerows(
+            r[: self.n_inputs] + [s] + r[self.n_inputs :] for r, s in zip(text, names, strict=True)
+        )
+
+    def close(self) -> None:
+        self.file.close()
+        os.replace(self.tmp, self.path)
+
+    def abort(self) -> None:
+        self.file.close()
+        self.tmp.unlink(missing_ok=True)
+
+
+class _NpzStore:
+    """Streams each column to a raw file, then packs them into one .npz at the end."""
+
+    def __init__(self, path: Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]):
+        self.path, self.labels = path, labels
+        self.columns = [*columns, "status"]
+        self.dir = tempfile.TemporaryDirectory(prefix=".lyacomp-samples-", dir=path.parent)
+        folder = Path(self.dir.name)
+        self.files = [open(folder / f"{i}.raw", "wb") for i in range(len(self.columns))]
+        self.rows = 0
+
+    def write(self, block: np.ndarray, status: np.ndarray) -> None:
+        for j, f in enumerate(self.files[:-1]):
+            np.ascontiguousarray(block[:, j], dtype="<f8").tofile(f)
+        np.asarray(status, dtype="<i4").tofile(self.files[-1])
+        self.rows += len(status)
+
+    def close(self) -> None:
+        for f in self.files:
+            f.close()
+        tmp = self.path.with_name(f".{self.path.name}.partial")
+        with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
+            for j, name in enumerate(self.columns):
+                dtype = "<i4" if name == "status" else "<f8"
+                self._member(zf, name, dtype, Path(self.dir.name) / f"{j}.raw")
+            codes = max(self.labels) + 1
+            names = np.array([self.labels.get(i, f"status_{i}") for i in range(codes)])
+            with zf.open("status_labels.npy", "w") as out:
+                np.lib.format.write_array(out, names)
+        os.replace(tmp, self.path)
+        self.dir.cleanup()
+
+    def _member(self, zf: zipfile.ZipFile, name: str, dtype: str, raw: Path) -> None:
+        header = {"descr": dtype, "fortran_order": False, "shape": (self.rows,)}
+        with zf.open(f"{name}.npy", "w", force_zip64=True) as out, raw.open("rb") as src:
+            np.lib.format.write_array_header_2_0(out, header)
+            shutil.copyfileobj(src, out, 1 << 22)
+
+    def abort(self) -> None:
+        for f in self.files:
+            f.close()
+        self.dir.cleanup()
+
+
+def _open_store(
+    path: str | Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]
+) -> _CsvStore | _NpzStore:
+    path = Path(path)
+    kinds = {".csv": _CsvStore, ".npz": _NpzStore}
+    if path.suffix.lower() not in kinds:
+        raise StudyError(f"cannot save samples to '{path}': use a .csv or .npz file name")
+    if not path.parent.is_dir():
+        raise StudyError(f"cannot save samples to '{path}': folder '{path.parent}' does not exist")
+    return kinds[path.suffix.lower()](path, columns, n_inputs, labels)
+
+
+def _jsonable(x: float) -> float | None:
+    return None if not math.isfinite(x) else float(x)
+
+
+def _status_labels() -> dict[int, str]:
+    return {int(s): s.label for s in Status}
+
+
+class _StopFlag:
+    stop = False
+
+
+@contextmanager
+def _stop_on_interrupt() -> Iterator[_StopFlag]:
+    """First Ctrl-C: finish the current chunk and stop. A second one aborts at once."""
+    flag = _StopFlag()
+    if threading.current_thread() is not threading.main_thread():
+        yield flag
+        return
+
+    def handler(signum: int, frame: object) -> None:
+        if flag.stop:
+            raise KeyboardInterrupt
+        flag.stop = True
+
+    previous = signal.signal(signal.SIGINT, handler)
+    try:
+        yield flag
+    finally:
+        signal.signal(signal.SIGINT, previous)
+
+
+def _progress(total: int, enabled: bool | None):
+    if enabled is None:
+        enabled = sys.stderr.isatty()
+    if not enabled:
+        return None
+    try:
+        from tqdm import tqdm
+    except ImportError:
+        return None
+    return tqdm(total=total, unit="sample", unit_scale=True, file=sys.stderr, leave=False)
+
+
+def _check_count(value: object, what: str, minimum: int) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < minimum:
+        raise StudyError(f"{what} must be an integer >= {minimum}; got {value!r}")
+    return int(value)
+
+
+def resolve_seed(seed: int | None) -> int:
+    """The seed to use: the given one, or fresh entropy (reported so the run can be repeated)."""
+    if seed is None:
+        return int(np.random.SeedSequence().entropy)
+    return _check_count(seed, "seed", 0)
+
+
+def study_setup(
+    ev: Any, uncertainty: Mapping[str, object] | None, fixed: Mapping[str, float] | None
+) -> tuple[UncertaintySpec, dict[str, float]]:
+    """Parse the uncertainty for ``ev`` and check the fixed overrides."""
+    fixed = {str(k): float(v) for k, v in (fixed or {}).items()}
+    unknown = [k for k in fixed if k not in ev.parameters]
+    if unknown:
+        raise StudyError(
+            f"unknown parameter(s) {', '.join(unknown)}; the model has {', '.join(ev.parameters)}"
+        )
+    table = ev.model.uncertainty if uncertainty is None else uncertainty
+    spec = parse_uncertainty(
+        table, {**ev.nominal, **fixed}, parameters=ev.parameters, bifurcation=ev.bifurcation
+    )
+    return spec, fixed
+
+
+def output_columns(spec: UncertaintySpec, states: Sequence[str]) -> list[str]:
+    """Names of the kept / saved columns: parameters first, then outputs."""
+    outputs = [*SCALAR_OUTPUTS, *(f"amplitude_{s}" for s in states)]
+    return [f"input_{n}" if n in outputs else n for n in spec.names] + outputs
+
+
+def _output_block(batch: Any) -> np.ndarray:
+    return np.column_stack(
+        [batch.l1, batch.critical_value, batch.omega, np.asarray(batch.amplitude, dtype=float)]
+    )
+
+
+def run_robustness(
+    ev: Any,
+    samples: int,
+    *,
+    seed: int | None = None,
+    uncertainty: Mapping[str, object] | None = None,
+    method: str = "random",
+    fixed: Mapping[str, float] | None = None,
+    threads: int | None = None,
+    chunk_size: int = DEFAULT_CHUNK,
+    keep: int = DEFAULT_KEEP,
+    quantile_levels: Sequence[float] = DEFAULT_LEVELS,
+    confidence: float = 0.95,
+    progress: bool | None = None,
+    save: str | Path | None = None,
+) -> RobustnessResult:
+    """Monte Carlo over the uncertain parameters of a compiled model.
+
+    ``uncertainty`` defaults to the model's ``[uncertainty]`` table; ``fixed``
+    overrides nominal values of other parameters (and re-centres defaults such as
+    a normal's mean). The bifurcation parameter's value only seeds the search for
+    the critical value. ``progress`` None shows a bar only on a terminal. Ctrl-C
+    stops after the current chunk and returns what was evaluated
+    (``interrupted`` is then True). ``save`` (.csv or .npz) writes every sample.
+    """
+    samples = _check_count(samples, "samples", 1)
+    chunk_size = _check_count(chunk_size, "chunk_size", 1)
+    keep = _check_count(keep, "keep", 0)
+    if method not in METHODS:
+        raise StudyError(f"sampling method must be one of {', '.join(METHODS)}; got {method!r}")
+    levels = [float(q) for q in quantile_levels]
+    if not all(0.0 < q < 1.0 for q in levels):
+        raise StudyError(f"quantile levels must lie strictly between 0 and 1; got {levels}")
+    if not 0.0 < confidence < 1.0:
+        raise StudyError(f"confidence must lie strictly between 0 and 1; got {confidence}")
+    seed = resolve_seed(seed)
+    spec, fixed = study_setup(ev, uncertainty, fixed)
+    columns = output_columns(spec, ev.states)
+    labels = _status_labels()
+    base = {k: v for k, v in fixed.items() if k not in spec.names}
+
+    reservoir = _Reservoir(min(keep, samples), len(columns))
+    counts = np.zeros(max(labels) + 1, dtype=np.int64)
+    done = subcritical = degenerate = 0
+    store = _open_store(save, columns, spec.dimension, labels) if save is not None else None
+    bar = _progress(samples, progress)
+    stopped = False
+    try:
+        with _stop_on_interrupt() as flag:
+            for chunk, start in enumerate(range(0, samples, chunk_size)):
+                if flag.stop:
+                    stopped = True
+                    break
+                m = min(chunk_size, samples - start)
+                rng = chunk_rng(seed, chunk)
+                values = spec.values(draw_scores(rng, m, spec.dimension, method))
+                keys = rng.random(m)
+                inputs = {**base, **{n: values[:, j] for j, n in enumerate(spec.names)}}
+                batch = ev.batch(inputs, threads=threads)
+                status = np.asarray(batch.status)
+                ok = status == 0
+                block = np.column_stack([values, _output_block(batch)])
+                if store is not None:
+                    store.write(block, status)
+                found = np.bincount(status, minlength=len(counts))
+                if len(found) > len(counts):
+                    counts = np.pad(counts, (0, len(found) - len(counts)))
+                counts += found
+                crit = np.asarray(batch.criticality)
+                subcritical += int(np.count_nonzero(ok & (crit == Criticality.SUBCRITICAL)))
+                degenerate += int(np.count_nonzero(ok & (crit == Criticality.DEGENERATE)))
+                if reservoir.capacity:
+                    reservoir.offer(keys[ok], block[ok])
+                done += m
+                if bar is not None:
+                    bar.update(m)
+            stopped = stopped or (flag.stop and done < samples)
+        if store is not None:
+            store.close()
+            store = None
+    finally:
+        if bar is not None:
+            bar.close()
+        if store is not None:
+            store.abort()
+
+    kept_rows = reservoir.contents()
+    kept = {name: kept_rows[:, j].copy() for j, name in enumerate(columns)}
+    n_ok = int(counts[0])
+    quantiles = _quantiles(kept, columns[spec.dimension :], levels)
+    ranking = rank_drivers(kept_rows[:, : spec.dimension], kept["l1"], spec.names)
+    return RobustnessResult(
+        model=ev.model.name,
+        samples=done,
+        requested=samples,
+        interrupted=stopped,
+        seed=seed,
+        method=method,
+        chunk_size=chunk_size,
+        uncertain=spec.names,
+        distributions=spec.describe(),
+        fixed=fixed,
+        status_counts={labels.get(i, f"status_{i}"): int(c) for i, c in enumerate(counts)},
+        ok=n_ok,
+        subcritical=subcritical,
+        degenerate=degenerate,
+        confidence=confidence,
+        interval=wilson_interval(subcritical, n_ok, confidence),
+        quantiles=quantiles,
+        quantile_basis=len(kept_rows),
+        ranking=ranking,
+        kept=kept,
+    )
+
+
+def _quantiles(
+    kept: Mapping[str, np.ndarray], outputs: Sequence[str], levels: Sequence[float]
+) -> dict[str, dict[str, float]]:
+    out: dict[str, dict[str, float]] = {}
+    for name in outputs:
+        values = kept[name]
+        if len(values):
+            qs = np.quantile(values, levels)
+        else:
+            qs = np.full(len(levels), math.nan)
+        out[name] = {f"{lv:g}": float(v) for lv, v in zip(levels, qs, strict=True)}
+    return out

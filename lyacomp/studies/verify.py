@@ -1,0 +1,436 @@
+"""Check the compiled Hopf predictions by direct numerical integration.
+
+The model is integrated with scipy's DOP853 (explicit, eighth order, tight
+tolerances) a small distance past onset on the side where the predicted cycle
+lives. Only the onset data (critical value, frequency, transversality, l1,
+amplitude coefficients) come from the compiled evaluator; the equilibrium at the
+shifted parameter value and the critical eigenvector that sets the starting point
+are recomputed here from ``model.symbolic()`` with numpy/scipy, so the check
+shares no code with the generated C.
+
+- Supercritical: start inside the predicted cycle, integrate until the radial
+  transient has died out (it decays like ``exp(-2|d (mu - mu0)| t)``), then measure
+  the amplitude of every state and the period and put them beside
+  ``K_j * sqrt(|mu - mu0|)`` and ``2*pi/omega``.
+- Subcritical: the predicted cycle is unstable. Start just inside it (the
+  trajectory must return to the equilibrium) and just outside it (it must leave the
+  neighbourhood). Together the two runs bracket the predicted amplitude.
+
+This is a local, near-onset check; it says nothing about what happens far from the
+equilibrium.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import sympy
+
+from lyacomp.errors import StudyError
+
+#: Ratio of the equilibrium's growth rate to the frequency used by default to pick
+#: how far past onset to simulate: ``|d * (mu - mu0)| = growth * omega``.
+DEFAULT_GROWTH = 0.01
+
+#: Integrator tolerances: relative, and absolute as a fraction of the cycle size.
+RTOL = 1e-10
+ATOL_FRACTION = 1e-9
+
+#: Starting radius of the runs, as fractions of the predicted cycle radius.
+SUPERCRITICAL_START = 0.5
+SUBCRITICAL_INNER = 0.8
+SUBCRITICAL_OUTER = 1.25
+
+#: A trajectory has left the neighbourhood once its distance from the equilibrium
+#: exceeds this many predicted cycle radii; it has returned once below this fraction.
+ESCAPE_RADII = 4.0
+RETURN_FRACTION = 0.05
+
+#: Radial transients decay like exp(-rate*t); integrate for this many e-foldings.
+SETTLE_EFOLDS = 10.0
+#: Periods in each of the two measuring windows (the drift between them is reported).
+WINDOW_PERIODS = 10
+SAMPLES_PER_PERIOD = 512
+#: Refuse runs longer than this many periods (the offset is then too small).
+MAX_PERIODS = 20000
+#: Relative change of the amplitude between the two windows below which the cycle
+#: counts as settled.
+SETTLED_DRIFT = 1e-3
+PLOT_SAMPLES = 6000
+
+
+@dataclass(frozen=True)
+class NumericModel:
+    """Right-hand side and Jacobian of a model at fixed parameter values (states only)."""
+
+    state_names: tuple[str, ...]
+    rhs: Callable[[float, np.ndarray], np.ndarray]
+    jacobian: Callable[[np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True)
+class CycleMeasurement:
+    """Amplitude per state ((max - min)/2) and period measured on a settled trajectory."""
+
+    amplitude: np.ndarray
+    period: float
+    drift: float
+
+    @property
+    def settled(self) -> bool:
+        return self.drift < SETTLED_DRIFT
+
+
+@dataclass
+class SimulationRun:
+    """One integration: where it started, what became of it, and samples for plots."""
+
+    label: str
+    start_radius: float
+    outcome: str
+    t_end: float
+    t: np.ndarray = field(repr=False)
+    x: np.ndarray = field(repr=False)
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "label": self.label,
+            "start_radius": self.start_radius,
+            "outcome": self.outcome,
+            "t_end": self.t_end,
+        }
+
+
+@dataclass
+class SimulationCheck:
+    """Outcome of :func:`check_by_simulation`, with the predictions beside the measurements."""
+
+    model: str
+    criticality: str
+    bifurcation: str
+    critical_value: float
+    value: float
+    parameters: dict[str, float]
+    state_names: tuple[str, ...]
+    equilibrium: np.ndarray
+    predicted_amplitude: np.ndarray
+    predicted_period: float
+    predicted_cycle: np.ndarray = field(repr=False)
+    runs: list[SimulationRun] = field(default_factory=list)
+    measured: CycleMeasurement | None = None
+
+    @property
+    def offset(self) -> float:
+        return self.value - self.critical_value
+
+    @property
+    def amplitude_error(self) -> np.ndarray | None:
+        """Relative error of the measured amplitude per state (supercritical only)."""
+        if self.measured is None:
+            return None
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return self.measured.amplitude / self.predicted_amplitude - 1.0
+
+    @property
+    def period_error(self) -> float | None:
+        if self.measured is None:
+            return None
+        return self.measured.period / self.predicted_period - 1.0
+
+    @property
+    def agrees(self) -> bool:
+        """Supercritical: settled on a cycle whose largest amplitude is within 10% of the
+        prediction. Subcritical: the inner run returned and the outer run escaped."""
+        if self.criticality == "supercritical":
+            if self.measured is None or not self.measured.settled:
+                return False
+            main = int(np.argmax(self.predicted_amplitude))
+            return abs(self.amplitude_error[main]) < 0.1
+        outcomes = {run.label: run.outcome for run in self.runs}
+        return outcomes.get("inside") == "returned" and outcomes.get("outside") == "escaped"
+
+    def to_dict(self) -> dict[str, Any]:
+        out: dict[str, Any] = {
+            "model": self.model,
+            "criticality": self.criticality,
+            "bifurcation": self.bifurcation,
+            "critical_value": self.critical_value,
+            "value": self.value,
+            "offset": self.offset,
+            "parameters": dict(self.parameters),
+            "equilibrium": _by_state(self.state_names, self.equilibrium),
+            "predicted": {
+                "amplitude": _by_state(self.state_names, self.predicted_amplitude),
+                "period": self.predicted_period,
+            },
+            "runs": [run.to_dict() for run in self.runs],
+            "agrees": self.agrees,
+        }
+        if self.measured is not None:
+            out["measured"] = {
+                "amplitude": _by_state(self.state_names, self.measured.amplitude),
+                "period": self.measured.period,
+                "drift": self.measured.drift,
+                "settled": self.measured.settled,
+            }
+            out["relative_error"] = {
+                "amplitude": _by_state(self.state_names, self.amplitude_error),
+                "period": self.period_error,
+            }
+        return out
+
+
+def _by_state(names: tuple[str, ...], values: np.ndarray) -> dict[str, float]:
+    return {name: float(v) for name, v in zip(names, values, strict=True)}
+
+
+# ---------------------------------------------------------------------------
+# Building blocks that need only a plain ODE (tested without the compiler).
+# ---------------------------------------------------------------------------
+
+
+def numeric_model(model: Any, values: Mapping[str, float]) -> NumericModel:
+    """Lambdify the model's right-hand side and Jacobian with all parameters fixed."""
+    sym = model.symbolic()
+    missing = [name for name in model.parameter_names if name not in values]
+    if missing:
+        raise StudyError(f"no value for parameter(s) {', '.join(missing)}")
+    subs = {
+        s: sympy.Float(float(values[name]))
+        for s, name in zip(sym.parameters, model.parameter_names, strict=True)
+    }
+    rhs = sympy.Matrix([sympy.sympify(e).xreplace(subs) for e in sym.rhs])
+    jac = rhs.jacobian(sympy.Matrix(sym.states))
+    states = list(sym.states)
+    # math-module code is several times faster than numpy on scalars, which is all
+    # DOP853 ever passes; dummify keeps user names such as "lambda" or "E" harmless.
+    f = sympy.lambdify(states, list(rhs), modules="math", dummify=True)
+    j = sympy.lambdify(states, jac.tolist(), modules="math", dummify=True)
+
+    def rhs_fn(_t: float, x: np.ndarray) -> np.ndarray:
+        return np.array(f(*x), dtype=float)
+
+    def jac_fn(x: np.ndarray) -> np.ndarray:
+        return np.array(j(*x), dtype=float)
+
+    return NumericModel(tuple(model.state_names), rhs_fn, jac_fn)
+
+
+def find_equilibrium(nm: NumericModel, guess: np.ndarray) -> np.ndarray:
+    """Newton-type solve of F(x) = 0 from ``guess`` (scipy hybr with the exact Jacobian)."""
+    from scipy.optimize import root
+
+    sol = root(lambda x: nm.rhs(0.0, x), np.asarray(guess, float), jac=nm.jacobian, method="hybr")
+    x = np.asarray(sol.x, float)
+    scale = max(1.0, float(np.max(np.abs(x))))
+    if not np.all(np.isfinite(x)) or np.max(np.abs(nm.rhs(0.0, x))) > 1e-9 * scale:
+        raise StudyError(
+            "could not find the equilibrium past onset for the simulation; "
+            "try a smaller offset (--offset) or growth"
+        )
+    return x
+
+
+def critical_direction(jacobian: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Critical eigenvectors at the eigenvalue with positive imaginary part closest to the
+    imaginary axis: ``q`` with <q, q> = 1 and the adjoint ``p`` with <p, q> = 1 (math.md).
+
+    ``z = <p, x - x0>`` is then the complex normal-form coordinate of a point near x0.
+    """
+    values, vectors = np.linalg.eig(jacobian)
+    candidates = np.flatnonzero(values.imag > 0)
+    if candidates.size == 0:
+        raise StudyError("the Jacobian past onset has no complex eigenvalue pair to follow")
+    k = candidates[np.argmin(np.abs(values.real[candidates]))]
+    q = vectors[:, k] / np.linalg.norm(vectors[:, k])
+    left_values, left_vectors = np.linalg.eig(jacobian.T)
+    p = left_vectors[:, np.argmin(np.abs(left_values - np.conj(values[k])))]
+    return q, p / np.conj(np.vdot(p, q))
+
+
+def measure_cycle(t: np.ndarray, x: np.ndarray, reference: int) -> tuple[np.ndarray, float]:
+    """Amplitude ((max - min)/2) of every column of ``x`` and the period from the mean
+    time between upward crossings of the window mean by column ``reference``."""
+    amplitude = 0.5 * (x.max(axis=0) - x.min(axis=0))
+    signal = x[:, reference] - x[:, reference].mean()
+    up = np.flatnonzero((signal[:-1] < 0) & (signal[1:] >= 0))
+    if up.size < 2:
+        return amplitude, math.nan
+    # linear interpolation of the crossing; its error cancels between equal crossings
+    frac = -signal[up] / (signal[up + 1] - signal[up])
+    times = t[up] + frac * (t[up + 1] - t[up])
+    return amplitude, float((times[-1] - times[0]) / (times.size - 1))
+
+
+def _radius_event(measure: Callable[[np.ndarray], float], level: float, direction: int):
+    def event(_t: float, x: np.ndarray) -> float:
+        return measure(x) - level
+
+    event.terminal = True
+    event.direction = direction
+    return event
+
+
+def _integrate(
+    nm: NumericModel, x0: np.ndarray, t_end: float, scale: float, events: list | None = None
+):
+    from scipy.integrate import solve_ivp
+
+    sol = solve_ivp(
+        nm.rhs,
+        (0.0, t_end),
+        x0,
+        method="DOP853",
+        rtol=RTOL,
+        atol=ATOL_FRACTION * scale,
+        dense_output=True,
+        events=events,
+    )
+    if sol.status == -1:
+        raise StudyError(f"the integration failed: {sol.message}")
+    return sol
+
+
+def settle_on_cycle(
+    nm: NumericModel,
+    x0: np.ndarray,
+    period: float,
+    settle_time: float,
+    scale: float,
+    reference: int,
+    events: list | None = None,
+) -> tuple[Any, CycleMeasurement | None]:
+    """Integrate for ``settle_time`` plus two windows of WINDOW_PERIODS periods and measure
+    the cycle in both windows. Returns the solution and the measurement (None when a
+    terminal event, such as leaving the neighbourhood, stopped the run)."""
+    window = WINDOW_PERIODS * period
+    t_end = settle_time + 2 * window
+    sol = _integrate(nm, x0, t_end, scale, events)
+    if sol.status == 1:
+        return sol, None
+    n = WINDOW_PERIODS * SAMPLES_PER_PERIOD
+    ta = np.linspace(settle_time, settle_time + window, n)
+    tb = np.linspace(settle_time + window, t_end, n)
+    amp_a, _ = measure_cycle(ta, sol.sol(ta).T, reference)
+    amp_b, per = measure_cycle(tb, sol.sol(tb).T, reference)
+    drift = float(np.max(np.abs(amp_b - amp_a)) / max(float(np.max(amp_b)), 1e-300))
+    return sol, CycleMeasurement(amp_b, per, drift)
+
+
+def _samples(sol: Any, t_end: float) -> tuple[np.ndarray, np.ndarray]:
+    t = np.linspace(0.0, t_end, PLOT_SAMPLES)
+    return t, sol.sol(t).T
+
+
+# ---------------------------------------------------------------------------
+# The check itself: compiled predictions against the integration.
+# ---------------------------------------------------------------------------
+
+
+def check_by_simulation(
+    model: Any,
+    overrides: Mapping[str, float] | None = None,
+    *,
+    growth: float = DEFAULT_GROWTH,
+    offset: float | None = None,
+    evaluator: Any = None,
+) -> SimulationCheck:
+    """Integrate ``model`` just past its Hopf onset and compare with the compiled predictions.
+
+    ``overrides`` fix parameters other than their nominal values (a value given for the
+    bifurcation parameter is only the starting guess for the onset). The distance past
+    onset is ``offset`` (in units of the bifurcation parameter; its sign is chosen from the
+    predicted cycle side) or, by default, the one where the equilibrium's growth rate is
+    ``growth`` times the frequency.
+    """
+    import lyacomp
+
+    ev = evaluator if evaluator is not None else lyacomp.compile(model)
+    if ev.bifurcation is None:
+        raise StudyError("the simulation check needs a model with a bifurcation parameter")
+    if not growth > 0 or (offset is not None and not offset != 0):
+        raise StudyError("growth and offset must be positive numbers")
+    overrides = dict(overrides or {})
+    res = ev(**overrides)
+    if not res.ok:
+        raise StudyError(
+            f"no Hopf point at these parameter values (status {res.status}); "
+            "check --set values or the starting guess of the bifurcation parameter"
+        )
+    if res.criticality not in ("supercritical", "subcritical"):
+        raise StudyError(
+            f"the onset is {res.criticality} (l1 = {res.l1:.3g}); a simulation cannot "
+            "decide it near onset"
+        )
+
+    mu0, d, omega, l1 = res.critical_value, res.transversality, res.omega, res.l1
+    side = 1.0 if res.cycle_side == "above" else -1.0
+    delta = side * (abs(offset) if offset is not None else growth * omega / abs(d))
+    values = {**ev.nominal, **overrides, ev.bifurcation: mu0 + delta}
+    nm = numeric_model(model, values)
+    guess = np.array([res.equilibrium[s] for s in nm.state_names], float)
+    eq = find_equilibrium(nm, guess)
+    q, p = critical_direction(nm.jacobian(eq))
+
+    # normal-form radius |w| and the predicted cycle x0 + 2 Re(w q e^{i theta})
+    w = math.sqrt(abs(d * delta / (omega * l1)))
+    theta = np.linspace(0.0, 2 * math.pi, 400)
+    cycle = eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q))
+    radius = 2 * w
+    predicted = np.array([res.amplitude[s] for s in nm.state_names]) * math.sqrt(abs(delta))
+    period = 2 * math.pi / omega
+    rate = 2 * abs(d * delta)
+    settle = SETTLE_EFOLDS / rate
+    if settle / period > MAX_PERIODS:
+        raise StudyError(
+            f"the cycle would take about {settle / period:.0f} periods to settle at offset "
+            f"{abs(delta):.3g}; use a larger offset"
+        )
+    check = SimulationCheck(
+        model=model.name,
+        criticality=res.criticality,
+        bifurcation=ev.bifurcation,
+        critical_value=mu0,
+        value=mu0 + delta,
+        parameters={k: float(v) for k, v in values.items()},
+        state_names=nm.state_names,
+        equilibrium=eq,
+        predicted_amplitude=predicted,
+        predicted_period=period,
+        predicted_cycle=cycle,
+    )
+
+    def start(fraction: float) -> np.ndarray:
+        # the point of normal-form coordinate z = fraction * w (phase 0)
+        return eq + 2 * fraction * w * np.real(q)
+
+    # Leaving: Euclidean distance beyond ESCAPE_RADII cycle sizes (a point of the cycle is
+    # never farther than 2|w| from x0). Returning: |<p, x - x0>| (the normal-form radius,
+    # which stays near |w| on the cycle however flat its ellipse) below RETURN_FRACTION |w|.
+    leave = _radius_event(lambda x: float(np.linalg.norm(x - eq)), ESCAPE_RADII * radius, +1)
+    back = _radius_event(lambda x: abs(complex(np.vdot(p, x - eq))), RETURN_FRACTION * w, -1)
+    reference = int(np.argmax(predicted))
+    if res.criticality == "supercritical":
+        sol, meas = settle_on_cycle(
+            nm, start(SUPERCRITICAL_START), period, settle, radius, reference, [leave]
+        )
+        outcome = "escaped" if meas is None else ("settled" if meas.settled else "drifting")
+        t, x = _samples(sol, float(sol.t[-1]))
+        run = SimulationRun("inside", SUPERCRITICAL_START, outcome, float(sol.t[-1]), t, x)
+        check.runs.append(run)
+        check.measured = meas
+        return check
+
+    for label, fraction in (("inside", SUBCRITICAL_INNER), ("outside", SUBCRITICAL_OUTER)):
+        sol = _integrate(nm, start(fraction), 3 * settle, radius, [back, leave])
+        if sol.status == 1:
+            outcome = "returned" if sol.t_events[0].size else "escaped"
+        else:
+            outcome = "stayed"
+        t, x = _samples(sol, float(sol.t[-1]))
+        check.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
+    return check

@@ -1,0 +1,1 @@
+"""Independent high-precision references used by the test suite (no lyacomp imports here)."""
