@@ -91,6 +91,7 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         "b_form": lowered.b_form,
         "c_form": lowered.c_form,
         "hess_dir": lowered.hess_dir,
+        "trace_grad": lowered.trace_grad,
         "critical_value": lowered.critical_value,
         "equilibrium": lowered.equilibrium,
         "solve_mu": lowered.bif_index >= 0 and lowered.critical_value is None,

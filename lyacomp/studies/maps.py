@@ -216,21 +216,26 @@ def classify(status: np.ndarray, criticality: np.ndarray) -> np.ndarray:
     return classes
 
 
-def _check_names(ev: Any, names: list[str]) -> None:
-    for name in names:
+def _check_names(ev: Any, axes: list[str], fixed: Mapping[str, float]) -> None:
+    """Axes must be parameters other than the bifurcation parameter; ``fixed`` may name any
+    parameter (for the bifurcation parameter it is the starting guess of the search)."""
+    if ev.bifurcation is None:
+        raise StudyError(
+            "a map needs a model with a bifurcation parameter (the onset is located at every point)"
+        )
+    for name in [*axes, *fixed]:
         if name not in ev.parameters:
             raise StudyError(
                 f"unknown parameter {name!r}; the model has {', '.join(ev.parameters)}"
             )
+    for name in axes:
         if name == ev.bifurcation:
             raise StudyError(
                 f"{name!r} is the bifurcation parameter, which is solved for at every point; "
                 "map over other parameters"
             )
-    if ev.bifurcation is None:
-        raise StudyError(
-            "a map needs a model with a bifurcation parameter (the onset is located at every point)"
-        )
+        if name in fixed:
+            raise StudyError(f"{name!r} is both an axis and a fixed value; drop one")
 
 
 class _NoHopfHere(Exception):
@@ -293,7 +298,7 @@ def parameter_map(
     ``fixed`` sets other parameters (default: nominal values).
     """
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
-    _check_names(ev, [x.name, y.name, *fixed])
+    _check_names(ev, [x.name, y.name], fixed)
     if x.name == y.name:
         raise StudyError(f"the two axes must be different parameters (both are {x.name!r})")
     if x.n * y.n > MAX_GRID_POINTS:
@@ -356,7 +361,7 @@ def find_switches(
     then brentq inside every bracket; each switch carries its critical value and frequency."""
     axis = Axis(name, float(lo), float(hi), int(n))
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
-    _check_names(ev, [name, *fixed])
+    _check_names(ev, [name], fixed)
     values = axis.values
     batch = ev.batch({**fixed, name: values}, threads=threads)
     l1 = np.asarray(batch.l1, float)

@@ -38,7 +38,7 @@ import numpy as np
 from lyacomp.errors import StudyError
 from lyacomp.status import Status
 from lyacomp.studies.robustness import study_setup
-from lyacomp.studies.uncertainty import chunk_rng, draw_scores
+from lyacomp.studies.uncertainty import LogNormal, chunk_rng, draw_scores
 
 SCALARS = ("l1", "critical_value", "omega", "transversality", "period")
 FAILURE_POLICIES = ("raise", "inf")
@@ -248,8 +248,8 @@ class RobustStatistic:
     The uncertain parameters are drawn once (``samples`` draws, ``seed``; Latin
     hypercube by default) and re-used for every design: common random numbers make
     the statistic a deterministic function of ``x``. A free parameter that is also
-    uncertain keeps each draw's offset from its nominal value, so the declared
-    spread travels with the design.
+    uncertain carries its declared spread along with the design: each draw keeps
+    its offset from the starting value (its ratio to it, for a lognormal).
 
     ``statistic="probability"``: fraction of samples with l1 > 0. It is piecewise
     constant in ``x``; use a derivative-free method, or give ``smoothing`` (a width in
@@ -294,7 +294,16 @@ class RobustStatistic:
         self.on_failure = on_failure
         self.samples = samples
         self.draws = spec.values(draw_scores(chunk_rng(seed, 0), samples, spec.dimension, method))
-        self._centre = np.array([fixed[n] for n in spec.names])
+        start = {**space.ev.nominal, **fixed}
+        self._centre = np.array([start[n] for n in spec.names])
+        # Lognormal spreads are relative, so they scale with the design; the others shift.
+        self._scaled = [isinstance(m, LogNormal) for m in spec.marginals]
+        for name, scaled, centre in zip(spec.names, self._scaled, self._centre, strict=True):
+            if name in space.free and scaled and centre <= 0.0:
+                raise StudyError(
+                    f"free parameter '{name}' has a lognormal uncertainty but starts at"
+                    f" {centre:g}; start it at a positive value"
+                )
         self._key: bytes | None = None
         self._values: list[float | DesignPointError] = []
 
@@ -307,7 +316,9 @@ class RobustStatistic:
             inputs[name] = np.repeat(rows[:, i], s)
         for j, name in enumerate(self.spec.names):
             draws = np.tile(self.draws[:, j], n_rows)
-            if name in self.space.free:
+            if name in self.space.free and self._scaled[j]:
+                draws = draws * (inputs[name] / self._centre[j])
+            elif name in self.space.free:
                 draws = draws - self._centre[j] + inputs[name]
             inputs[name] = draws
         return inputs

@@ -84,16 +84,16 @@ class TruncatedNormal:
 
 @dataclass(frozen=True)
 class LogNormal:
-    """Lognormal distribution: ln X ~ Normal(ln median, log_sd)."""
+    """Lognormal distribution: ln X ~ Normal(ln median, sigma)."""
 
     median: float
-    log_sd: float
+    sigma: float
 
     def from_scores(self, z: np.ndarray) -> np.ndarray:
-        return self.median * np.exp(self.log_sd * z)
+        return self.median * np.exp(self.sigma * z)
 
     def describe(self) -> str:
-        return f"lognormal(median={self.median:g}, log_sd={self.log_sd:g})"
+        return f"lognormal(median={self.median:g}, sigma={self.sigma:g})"
 
 
 @dataclass(frozen=True)
@@ -140,7 +140,7 @@ Distribution = Normal | TruncatedNormal | LogNormal | Uniform | Triangular
 _KEYS: dict[str, tuple[tuple[str, ...], tuple[str, ...]]] = {
     "normal": (("sd",), ("mean",)),
     "truncated_normal": (("sd",), ("mean", "low", "high")),
-    "lognormal": (("log_sd",), ("median",)),
+    "lognormal": (("sigma",), ("median",)),
     "uniform": (("low", "high"), ()),
     "triangular": (("low", "high"), ("mode",)),
 }
@@ -228,9 +228,9 @@ def _marginal(name: str, entry: Mapping[str, object], nominal: float | None) -> 
             raise StudyError(f"{where}: the window [{low:g}, {high:g}] lies > 30 sd from the mean")
         return TruncatedNormal(v["mean"], v["sd"], low, high)
     if kind == "lognormal":
-        positive("log_sd")
+        positive("sigma")
         positive("median")
-        return LogNormal(v["median"], v["log_sd"])
+        return LogNormal(v["median"], v["sigma"])
     if not (math.isfinite(v["low"]) and math.isfinite(v["high"]) and v["low"] < v["high"]):
         got = f"low={v['low']:g}, high={v['high']:g}"
         raise StudyError(f"{where}: needs finite low < high; got {got}")

@@ -34,7 +34,7 @@ from lyacomp.errors import StudyError
 
 #: Ratio of the equilibrium's growth rate to the frequency used by default to pick
 #: how far past onset to simulate: ``|d * (mu - mu0)| = growth * omega``.
-DEFAULT_GROWTH = 0.01
+DEFAULT_GROWTH = 0.003
 
 #: Integrator tolerances: relative, and absolute as a fraction of the cycle size.
 RTOL = 1e-10
@@ -51,7 +51,7 @@ ESCAPE_RADII = 4.0
 RETURN_FRACTION = 0.05
 
 #: Radial transients decay like exp(-rate*t); integrate for this many e-foldings.
-SETTLE_EFOLDS = 10.0
+SETTLE_EFOLDS = 8.0
 #: Periods in each of the two measuring windows (the drift between them is reported).
 WINDOW_PERIODS = 10
 SAMPLES_PER_PERIOD = 512

@@ -1,0 +1,105 @@
+"""`lyacomp map`: onset type over a parameter plane, or the switches along one parameter."""
+
+from __future__ import annotations
+
+import argparse
+import json
+from pathlib import Path
+
+from ..errors import StudyError
+from ..pipeline import compile_model
+from ..runtime import CAUTION
+from .common import add_model_args, model_from_args, overrides_from_args
+
+EXAMPLE = """examples:
+  lyacomp map examples/model.toml --x k:0.5:2.0:81 --y c:0.1:0.4:61 --out map.png --data map.csv
+  lyacomp map examples/model.toml --line k:0.5:2.0:201 --set c=0.2"""
+
+
+def register(subparsers: argparse._SubParsersAction) -> None:
+    parser = subparsers.add_parser(
+        "map",
+        help="onset type over a parameter plane, with the curve l1 = 0",
+        description="Classify every point of a grid over two parameters (supercritical, "
+        "subcritical, no Hopf point, solver failure) with one batch evaluation, locate the "
+        "curve l1 = 0 by root finding along the grid lines, and write a PNG and the grid data. "
+        "With --line instead, report where along one parameter l1 changes sign. The "
+        "bifurcation parameter is solved for at every point and cannot be an axis.",
+        epilog=EXAMPLE,
+        formatter_class=argparse.RawDescriptionHelpFormatter,
+    )
+    add_model_args(parser)
+    parser.add_argument("--x", metavar="NAME:LO:HI:N", help="horizontal axis")
+    parser.add_argument("--y", metavar="NAME:LO:HI:N", help="vertical axis")
+    parser.add_argument(
+        "--line", metavar="NAME:LO:HI:N", help="instead of a map: sign changes of l1 along NAME"
+    )
+    parser.add_argument("--out", metavar="PNG", help="picture (default: MODELNAME_map.png)")
+    parser.add_argument(
+        "--data",
+        metavar="FILE",
+        help="grid data, .csv or .npz (default: the picture's name with .csv)",
+    )
+    parser.add_argument("--threads", type=int, default=None, help="threads for the batch")
+    parser.add_argument("--json", action="store_true", help="print one JSON object")
+    parser.set_defaults(func=run)
+
+
+def run(args: argparse.Namespace) -> int:
+    from ..studies.maps import Axis, find_switches, parameter_map
+
+    if args.line is not None:
+        if args.x or args.y:
+            raise StudyError("give either --line or --x and --y, not both")
+    elif not (args.x and args.y):
+        raise StudyError("give --x NAME:LO:HI:N and --y NAME:LO:HI:N (or --line NAME:LO:HI:N)")
+    model = model_from_args(args)
+    fixed = overrides_from_args(args, model)
+    if args.line is not None:
+        axis = Axis.parse(args.line)
+        ev = compile_model(model)
+        switches = find_switches(
+            ev, axis.name, axis.lo, axis.hi, axis.n, fixed, threads=args.threads
+        )
+        if args.json:
+            print(json.dumps({"model": model.name, "switches": [s.to_dict() for s in switches]}))
+            return 0
+        print(f"{model.name}: sign changes of l1 along {axis.name} in [{axis.lo:g}, {axis.hi:g}]")
+        if not switches:
+            print("  none found (l1 keeps one sign where a Hopf point was found)")
+        for s in switches:
+            print(
+                f"  {s.parameter} = {s.value:.10g}: {s.before} -> {s.after} as {s.parameter} "
+                f"increases; critical {ev.bifurcation} = {s.critical_value:.10g}, "
+                f"omega = {s.omega:.10g}"
+            )
+        print("caution: " + CAUTION)
+        return 0
+
+    x, y = Axis.parse(args.x), Axis.parse(args.y)
+    ev = compile_model(model)
+    pmap = parameter_map(ev, x, y, fixed, threads=args.threads)
+    from ..studies.plots_maps import plot_map
+
+    png = Path(args.out or f"{model.name}_map.png")
+    data = Path(args.data) if args.data else png.with_suffix(".csv")
+    try:
+        written = [plot_map(pmap, png, title=f"{model.name}: onset map"), *pmap.save(data)]
+    except OSError as exc:
+        raise StudyError(f"cannot write the map files: {exc}") from None
+    if args.json:
+        print(
+            json.dumps({"model": model.name, **pmap.summary(), "files": [str(p) for p in written]})
+        )
+        return 0
+    print(f"{model.name}: {x.name} x {y.name} grid of {x.n} x {y.n} points")
+    for words, count in pmap.counts().items():
+        if count:
+            print(f"  {words:<28} {count}")
+    print(
+        f"l1 = 0 located at {len(pmap.curve)} points by root finding"
+        + (f" ({pmap.unresolved} brackets left unresolved)" if pmap.unresolved else "")
+    )
+    print("wrote " + ", ".join(str(p) for p in written))
+    print("caution: " + CAUTION)
+    return 0
