@@ -84,21 +84,23 @@ _SMOOTHNESS_NOTE = (
 KEYWORD_PREFIX = "_kw_"
 
 
-def _protect_keywords(text: str, where: str) -> str:
-    """Rename Python keywords used as names so that ``ast`` can parse them."""
+def _protect_keywords(text: str, where: str, declared: Mapping[str, object]) -> str:
+    """Rename declared names that are Python keywords so that ``ast`` can parse them.
+
+    Undeclared keywords stay, so that ``x if c else y`` is reported as a conditional.
+    """
     try:
         tokens = list(tokenize.generate_tokens(io.StringIO(text).readline))
     except (tokenize.TokenError, SyntaxError, IndentationError) as exc:
-        raise ModelError(f"{where}: cannot read expression {text!r}: {exc}") from None
+        why = exc.args[0] if exc.args else exc
+        raise ModelError(f"{where}: syntax error in {text!r} ({why})") from None
     lines = text.splitlines(keepends=True) or [""]
     offsets = [0]
     for line in lines:
         offsets.append(offsets[-1] + len(line))
     edits = []
     for tok in tokens:
-        if tok.type == tokenize.NAME and (
-            keyword.iskeyword(tok.string) or tok.string in ("True", "False", "None")
-        ):
+        if tok.type == tokenize.NAME and keyword.iskeyword(tok.string) and tok.string in declared:
             start = offsets[tok.start[0] - 1] + tok.start[1]
             end = offsets[tok.end[0] - 1] + tok.end[1]
             edits.append((start, end, KEYWORD_PREFIX + tok.string))
@@ -227,7 +229,7 @@ def parse_expression(
         raise ModelError(f"{where}: expected an expression string, got {type(text).__name__}")
     if not text.strip():
         raise ModelError(f"{where}: empty expression")
-    protected = _protect_keywords(text.strip(), where)
+    protected = _protect_keywords(text.strip(), where, symbols)
     try:
         tree = ast.parse(protected, mode="eval")
     except SyntaxError as exc:

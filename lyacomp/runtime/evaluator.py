@@ -32,8 +32,8 @@ class Tolerances:
     """l1 counts as zero (degenerate) when |l1| <= rtol * (size of the terms that cancel)."""
     degenerate_atol: float = 0.0
     """... or when |l1| <= atol (in the units of l1)."""
-    transversality_rtol: float = 1e-10
-    """d counts as zero when |d| <= rtol * (size of its terms)."""
+    transversality_rtol: float = 1e-7
+    """d counts as zero when |d| * (1 + |mu0|) <= rtol * omega (the pair barely moves)."""
 
     def __post_init__(self) -> None:
         for name, value in asdict(self).items():

@@ -1,0 +1,151 @@
+"""Finding the C compiler, probing what it supports, and running it."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+import platform
+import shlex
+import shutil
+import subprocess
+import sys
+import sysconfig
+import tempfile
+import time
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+
+from ..config import BASE_FLAGS, BuildConfig
+from ..errors import BuildError, CompilerNotFoundError
+
+_INSTALL_HINT = (
+    "lyacomp compiles each model to C at run time and needs a C compiler. Install one: "
+    "Debian/Ubuntu: 'sudo apt-get install gcc'; Fedora/RHEL: 'sudo dnf install gcc'; "
+    "macOS: 'xcode-select --install'; conda: 'conda install -c conda-forge c-compiler'. "
+    "Or point LYACOMP_CC (or CC) at a compiler."
+)
+
+
+@dataclass(frozen=True)
+class Toolchain:
+    """A working compiler and the exact flags lyacomp uses with it."""
+
+    command: tuple[str, ...]
+    version: str
+    compile_flags: tuple[str, ...]
+    link_flags: tuple[str, ...]
+    openmp: bool
+
+    def identity(self) -> str:
+        """Everything about the toolchain that changes the binary (for the cache key)."""
+        return "\n".join([shlex.join(self.command), self.version, shlex.join(self.compile_flags),
+                          shlex.join(self.link_flags), _cpu_identity()])
+
+
+def _cpu_identity() -> str:
+    text = platform.machine()
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8", errors="replace") as fh:
+            for line in fh:
+                if line.startswith(("flags", "Features", "model name")):
+                    text += "|" + line.strip()
+                if text.count("|") >= 2:
+                    break
+    except OSError:
+        pass
+    return hashlib.sha256(text.encode()).hexdigest()[:16]
+
+
+def _find_command(config: BuildConfig) -> tuple[str, ...]:
+    if config.compiler:
+        parts = tuple(shlex.split(config.compiler))
+        if not parts or shutil.which(parts[0]) is None:
+            raise CompilerNotFoundError(f"the C compiler {config.compiler!r} (from LYACOMP_CC, "
+                                        f"CC or the build settings) was not found. {_INSTALL_HINT}")
+        return parts
+    for name in ("cc", "gcc", "clang"):
+        path = shutil.which(name)
+        if path:
+            return (path,)
+    raise CompilerNotFoundError(f"no C compiler (cc, gcc or clang) on PATH. {_INSTALL_HINT}")
+
+
+def _run(cmd: list[str], cwd: str | None = None, timeout: float = 600) -> subprocess.CompletedProcess:
+    return subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout)
+
+
+def _probe(command: tuple[str, ...], flags: list[str], source: str) -> bool:
+    with tempfile.TemporaryDirectory(prefix="lyacomp-probe-") as tmp:
+        src = Path(tmp) / "probe.c"
+        src.write_text(source)
+        try:
+            out = _run([*command, *flags, str(src), "-o", str(Path(tmp) / "probe.so")], cwd=tmp,
+                       timeout=60)
+        except (OSError, subprocess.TimeoutExpired):
+            return False
+        return out.returncode == 0
+
+
+@lru_cache(maxsize=8)
+def toolchain(config: BuildConfig) -> Toolchain:
+    """Find and check the compiler once per process and configuration."""
+    command = _find_command(config)
+    try:
+        out = _run([*command, "--version"], timeout=30)
+    except (OSError, subprocess.TimeoutExpired) as exc:
+        raise CompilerNotFoundError(f"the C compiler {command[0]} does not run: {exc}. "
+                                    f"{_INSTALL_HINT}") from None
+    version = (out.stdout or out.stderr).strip().splitlines()[0] if (out.stdout or out.stderr) \
+        else "unknown"
+    compile_flags = list(BASE_FLAGS)
+    shared = ["-shared"]
+    if sys.platform == "darwin":
+        shared += ["-undefined", "dynamic_lookup"]
+    test_src = "int lyacomp_probe(void) { return 0; }\n"
+    if not _probe(command, [*compile_flags, *shared], test_src):
+        raise CompilerNotFoundError(f"the C compiler {command[0]} cannot build a shared library "
+                                    f"with {shlex.join(compile_flags + shared)}. {_INSTALL_HINT}")
+    if config.native and _probe(command, [*compile_flags, "-march=native", *shared], test_src):
+        compile_flags.append("-march=native")
+    openmp = False
+    if config.openmp:
+        omp_src = ("#include <omp.h>\nint lyacomp_probe(void) { int s = 0;\n"
+                   "#pragma omp parallel for reduction(+:s)\n"
+                   "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n")
+        openmp = _probe(command, [*compile_flags, "-fopenmp", *shared], omp_src)
+    if openmp:
+        compile_flags.append("-fopenmp")
+    compile_flags.extend(config.extra_flags)
+    link_flags = [*shared, "-lm"] + (["-fopenmp"] if openmp else [])
+    return Toolchain(command, version, tuple(compile_flags), tuple(link_flags), openmp)
+
+
+def python_include_dirs() -> list[str]:
+    paths = sysconfig.get_paths()
+    return sorted({paths["include"], paths.get("platinclude", paths["include"])})
+
+
+def compile_shared(tc: Toolchain, source: Path, output: Path, include_dirs: list[str]) -> float:
+    """Compile one C file into a shared library; returns seconds taken."""
+    cmd = [*tc.command, *tc.compile_flags, *(f"-I{d}" for d in include_dirs), str(source),
+           "-o", str(output), *tc.link_flags]
+    start = time.perf_counter()
+    try:
+        out = _run(cmd, cwd=str(source.parent))
+    except subprocess.TimeoutExpired:
+        raise BuildError(f"the C compiler took more than 600 s on {source}", shlex.join(cmd), "",
+                         str(source)) from None
+    except OSError as exc:
+        raise CompilerNotFoundError(f"cannot run {cmd[0]}: {exc}. {_INSTALL_HINT}") from None
+    if out.returncode != 0:
+        text = (out.stderr + out.stdout).strip()
+        raise BuildError(f"the C compiler rejected the generated code for {source.name} "
+                         f"(exit {out.returncode}); source kept at {source}\n"
+                         f"command: {shlex.join(cmd)}\n{text[-4000:]}",
+                         shlex.join(cmd), text, str(source))
+    return time.perf_counter() - start
+
+
+def shared_library_suffix() -> str:
+    return sysconfig.get_config_var("EXT_SUFFIX") or (".pyd" if os.name == "nt" else ".so")

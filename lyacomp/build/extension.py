@@ -1,0 +1,73 @@
+"""Stage 5: turning generated C into a loaded cffi extension module (API mode)."""
+
+from __future__ import annotations
+
+import contextlib
+import importlib.machinery
+import importlib.util
+import io
+import logging
+import time
+from pathlib import Path
+from types import ModuleType
+from typing import Any
+
+import cffi
+
+from ..codegen import CSources
+from ..errors import BuildError
+from .compiler import Toolchain, compile_shared, python_include_dirs, shared_library_suffix
+
+log = logging.getLogger("lyacomp")
+
+
+def module_name(key: str) -> str:
+    return f"_lyacomp_{key[:24]}"
+
+
+def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str) -> dict[str, Any]:
+    """Write the C files into ``build_dir`` and compile the extension there.
+
+    Returns the metadata that describes the build.
+    """
+    name = module_name(key)
+    (build_dir / "model.c").write_text(sources.standalone, encoding="utf-8")
+    (build_dir / "model.h").write_text(sources.header, encoding="utf-8")
+    ffi = cffi.FFI()
+    try:
+        ffi.cdef(sources.cdef)
+    except cffi.CDefError as exc:  # a template bug, not user input
+        raise BuildError(f"internal error in the generated declarations: {exc}") from exc
+    ffi.set_source(name, sources.embedded)
+    wrapper = build_dir / f"{name}.c"
+    with contextlib.redirect_stdout(io.StringIO()):  # cffi announces the file it writes
+        ffi.emit_c_code(str(wrapper))
+    library = build_dir / f"{name}{shared_library_suffix()}"
+    seconds = compile_shared(tc, wrapper, library, python_include_dirs())
+    return {"module": name, "library": library.name, "prefix": sources.prefix,
+            "compile_seconds": round(seconds, 3), "compiler": list(tc.command),
+            "compiler_version": tc.version, "flags": list(tc.compile_flags),
+            "openmp": tc.openmp, "built_at": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+
+
+_LOADED: dict[str, ModuleType] = {}
+
+
+def load_extension(entry: Path, meta: dict[str, Any]) -> ModuleType:
+    """Import the compiled module of a cache entry (once per process)."""
+    name = meta["module"]
+    if name in _LOADED:
+        return _LOADED[name]
+    path = entry / meta["library"]
+    loader = importlib.machinery.ExtensionFileLoader(name, str(path))
+    spec = importlib.util.spec_from_file_location(name, str(path), loader=loader)
+    if spec is None:
+        raise BuildError(f"cannot load the compiled model {path}")
+    try:
+        module = importlib.util.module_from_spec(spec)
+        loader.exec_module(module)
+    except ImportError as exc:
+        raise BuildError(f"cannot load the compiled model {path}: {exc}; delete {entry} to "
+                         "force a rebuild") from exc
+    _LOADED[name] = module
+    return module
