@@ -1,0 +1,118 @@
+"""Stage 6: scalar and batch calls, broadcasting, threads, pickling."""
+
+from __future__ import annotations
+
+import math
+import pickle
+
+import numpy as np
+import pytest
+
+import lyacomp
+from lyacomp.errors import EvaluationError
+
+
+@pytest.fixture(scope="module")
+def normal_form():
+    # Hopf normal form in Cartesian coordinates: r' = mu r + s r^3, theta' = w.
+    model = lyacomp.Model(
+        name="normal form",
+        states={"x": 0.1, "y": -0.1},
+        parameters={"mu": 0.2, "s": -1.0, "w": 2.0},
+        equations={"x": "mu*x - w*y + s*x*(x**2 + y**2)", "y": "w*x + mu*y + s*y*(x**2 + y**2)"},
+        bifurcation="mu",
+    )
+    return lyacomp.compile(model)
+
+
+def test_scalar_call_and_dict(normal_form):
+    r = normal_form(s=1.0, w=4.0)
+    assert r.ok and r.status == "ok"
+    # l1 = 2 s / w for this form under math.md's normalization (math.md, planar check).
+    assert r.l1 == pytest.approx(0.5, rel=1e-13)
+    d = r.to_dict()
+    assert set(d) == {
+        "status",
+        "l1",
+        "omega",
+        "critical_value",
+        "bifurcation_parameter",
+        "equilibrium",
+        "transversality",
+        "amplitude",
+        "cycle_side",
+        "period",
+        "criticality",
+    }
+    assert d["bifurcation_parameter"] == "mu" and d["cycle_side"] == "below"
+    assert normal_form({"s": 1.0}, w=4.0).l1 == r.l1
+
+
+def test_batch_broadcasts_and_keeps_shape(normal_form):
+    s = np.linspace(-2, 2, 12).reshape(3, 4)
+    w = np.array([1.0, 2.0, 3.0, 4.0])
+    b = normal_form.batch({"s": s, "w": w})
+    assert b.shape == (3, 4) and len(b) == 12
+    assert b.equilibrium.shape == (3, 4, 2) and b.amplitude.shape == (3, 4, 2)
+    expected = 2 * s / w
+    ok = np.abs(s) > 0
+    np.testing.assert_allclose(b.l1[ok], expected[ok], rtol=1e-12)
+    assert (b.criticality[s < 0] == lyacomp.Criticality.SUPERCRITICAL).all()
+    assert (b.criticality[s > 0] == lyacomp.Criticality.SUBCRITICAL).all()
+
+
+def test_batch_matches_scalar_calls_and_thread_counts(normal_form):
+    rng = np.random.default_rng(7)
+    s = rng.normal(0.0, 1.0, 5000)
+    w = rng.uniform(0.5, 3.0, 5000)
+    mu = rng.uniform(-0.5, 0.5, 5000)
+    one = normal_form.batch({"s": s, "w": w, "mu": mu}, threads=1)
+    two = normal_form.batch({"s": s, "w": w, "mu": mu}, threads=2)
+    for field in ("l1", "omega", "critical_value", "transversality", "equilibrium"):
+        np.testing.assert_array_equal(getattr(one, field), getattr(two, field))
+    for i in (0, 17, 4999):
+        r = normal_form(s=s[i], w=w[i], mu=mu[i])
+        assert r.l1 == one.l1[i] and r.status == "ok"
+
+
+def test_batch_empty_and_scalar_only(normal_form):
+    b = normal_form.batch({"s": np.array([])})
+    assert len(b) == 0 and b.l1.shape == (0,)
+    b = normal_form.batch({})
+    assert b.shape == () and b.status == 0
+
+
+def test_bad_arguments_raise_clear_errors(normal_form):
+    with pytest.raises(EvaluationError, match=r"unknown parameter\(s\) \['nu'\]"):
+        normal_form(nu=1.0)
+    with pytest.raises(EvaluationError, match="must be a number"):
+        normal_form(s="big")
+    with pytest.raises(EvaluationError, match="do not broadcast"):
+        normal_form.batch({"s": np.zeros(3), "w": np.ones(4)})
+    with pytest.raises(EvaluationError, match="threads"):
+        normal_form.batch({"s": 1.0}, threads=0)
+    with pytest.raises(EvaluationError, match="cannot read"):
+        normal_form.batch({"s": ["a", "b"]})
+    with pytest.raises(EvaluationError, match="degenerate_rtol"):
+        normal_form.with_tolerances(degenerate_rtol=-1.0)
+
+
+def test_nan_parameters_in_batch_do_not_disturb_others(normal_form):
+    s = np.array([-1.0, np.nan, 1.0, np.inf])
+    b = normal_form.batch({"s": s})
+    assert b.status_labels().tolist() == ["ok", "nonfinite_input", "ok", "nonfinite_input"]
+    assert b.l1[0] == pytest.approx(-1.0) and math.isnan(b.l1[1])
+
+
+def test_degenerate_tolerance(normal_form):
+    r = normal_form(s=1e-9)
+    assert r.criticality == "subcritical"
+    assert normal_form.with_tolerances(degenerate_atol=1e-6)(s=1e-9).criticality == "degenerate"
+    assert normal_form(s=0.0).criticality == "degenerate"
+
+
+def test_evaluator_pickles(normal_form):
+    clone = pickle.loads(pickle.dumps(normal_form.with_tolerances(degenerate_atol=0.5)))
+    assert clone(s=0.6).l1 == normal_form(s=0.6).l1
+    assert clone.tolerances.degenerate_atol == 0.5
+    assert clone(s=0.2).criticality == "degenerate"
