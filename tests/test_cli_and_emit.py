@@ -94,7 +94,7 @@ def test_emitted_c_compiles_cleanly_and_agrees(examples_dir, tmp_path):
         int main(void) {{
             double p[FEEDER_N_PARAMS] = {{400, 0.2, 2e-3, 1e-3, 0.1, 1e-3, 0.5e-3, 0.002, 4000}};
             feeder_result r;
-            feeder_evaluate(p, NULL, NULL, &r);
+            feeder_evaluate(p, NULL, NULL, NULL, &r);
             printf("%d %.17g %.17g\\n", r.status, r.l1, r.critical_value);
             return r.status != FEEDER_OK;
         }}
@@ -135,3 +135,51 @@ def test_model_names_cannot_break_out_of_c_comments(tmp_path):
         bifurcation="mu",
     )
     assert lyacomp.compile(model)().l1 == pytest.approx(2 * (-6 / 16))
+
+
+def _variant(n: int, mode: str) -> lyacomp.Model:
+    states = {f"s{i}": 0.0 for i in range(n)}
+    names = list(states)
+    equations = {}
+    for i, name in enumerate(names):
+        nxt = names[(i + 1) % n]
+        equations[name] = f"-{nxt} + mu*{name} - {name}**3 + 0.1*{nxt}**2"
+    extra: dict = {"bifurcation": "mu"}
+    if mode == "no_bifurcation":
+        extra = {}
+    elif mode == "closed_forms":
+        extra["critical_value"] = "0"
+        extra["equilibrium"] = {s: "0" for s in names}
+    return lyacomp.Model(
+        name=f"variant {n} {mode}",
+        states=states,
+        parameters={"mu": 0.0},
+        equations=equations,
+        **extra,
+    )
+
+
+@pytest.mark.skipif(shutil.which("cc") is None, reason="needs a C compiler on PATH")
+@pytest.mark.parametrize("n", [2, 3, 5])
+@pytest.mark.parametrize("mode", ["newton", "no_bifurcation", "closed_forms"])
+def test_every_template_variant_compiles_without_warnings(n, mode, tmp_path):
+    # Common practice, no source: generated code must be warning-free under -Wall -Wextra.
+    sources = lyacomp.generate(_variant(n, mode), header_name="variant.h")
+    (tmp_path / "variant.c").write_text(sources.standalone)
+    (tmp_path / "variant.h").write_text(sources.header)
+    cmd = [
+        "cc",
+        "-std=c99",
+        "-O1",
+        "-Wall",
+        "-Wextra",
+        "-Werror",
+        "-pedantic",
+        "-fopenmp",
+        "-c",
+        "variant.c",
+        "-o",
+        "variant.o",
+    ]
+    build = subprocess.run(cmd, cwd=tmp_path, capture_output=True, text=True)
+    assert build.returncode == 0, build.stderr

@@ -9,9 +9,9 @@ from collections.abc import Sequence
 
 from .._version import __version__
 from ..errors import LyacompError
-from . import cache_cmd, emit_cmd, eval_cmd
+from . import cache_cmd, demo_cmd, emit_cmd, eval_cmd, map_cmd, robustness_cmd, verify_cmd
 
-SUBCOMMANDS = [eval_cmd, emit_cmd, cache_cmd]
+SUBCOMMANDS = [eval_cmd, robustness_cmd, map_cmd, verify_cmd, demo_cmd, emit_cmd, cache_cmd]
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -53,8 +53,9 @@ class Tolerances:
 class Evaluator:
     """A compiled model: call it for one parameter set, or ``batch`` for arrays.
 
-    Parameters not given take their nominal values; the value given for the
-    bifurcation parameter is the starting guess of its Newton solve.
+    Parameters not given take their nominal values. Newton starts from the Hopf point
+    solved at nominal values; a value given for the bifurcation parameter makes it start
+    from that value and the model's state guesses instead.
     """
 
     def __init__(
@@ -83,6 +84,12 @@ class Evaluator:
             setattr(self._options, name, value)
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
+        # Solve once at nominal values; later calls start Newton there (they fall back to
+        # the model's guesses if that fails), unless they set the bifurcation guess.
+        self._start = self.ffi.new(f"{PREFIX}_start *")
+        getattr(self.lib, f"{PREFIX}_prepare_start")(
+            self._nominal, self._guess, self._options, self._start
+        )
 
     # -- introspection ----------------------------------------------------------------
     @property
@@ -127,7 +134,8 @@ class Evaluator:
             except (TypeError, ValueError):
                 raise EvaluationError(f"parameter {name} must be a number, got {value!r}") from None
         res = self.ffi.new(f"{PREFIX}_result *")
-        self._evaluate(p, self._guess, self._options, res)
+        start = self.ffi.NULL if self.bifurcation in values else self._start
+        self._evaluate(p, self._guess, start, self._options, res)
         return HopfResult(res[0], self.states, self.bifurcation)
 
     # -- many parameter sets ----------------------------------------------------------
@@ -200,8 +208,16 @@ class Evaluator:
                 [ffi.cast("double *", ffi.from_buffer(c)) for c in columns] or [ffi.NULL],
             )
             c_strides = ffi.new("long[]", strides or [0])
+            start = ffi.NULL if self.bifurcation in values else self._start
             self._evaluate_batch(
-                count, c_params, c_strides, self._guess, self._options, threads or 0, c_out
+                count,
+                c_params,
+                c_strides,
+                self._guess,
+                start,
+                self._options,
+                threads or 0,
+                c_out,
             )
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
