@@ -8,10 +8,17 @@ import sys
 
 from lyacomp.cli.common import add_model_args, model_from_args, overrides_from_args
 
+DESCRIPTION = """\
+Monte Carlo over the uncertain parameters of a model: the probability of a hard
+(subcritical) onset with a 95% Wilson interval, the samples without a usable Hopf
+point by status, quantiles of l1, critical value, frequency and amplitude
+coefficients, and a ranking of the parameters that drive l1.
+"""
+
 EXAMPLE = """\
 example:
-  lyacomp robustness examples/valve.toml --samples 1000000 --seed 7 --plot l1.png
-  lyacomp robustness examples/valve.toml --samples 20000 --seed 7 --json --save draws.npz
+  lyacomp robustness examples/duct_flap.toml --samples 1000000 --seed 7 --plot l1.png
+  lyacomp robustness examples/duct_flap.toml --samples 20000 --seed 7 --json --save draws.npz
 
 The uncertain parameters come from the model's [uncertainty] table (keys: see
 docs/uncertainty.md). A seed makes the run reproducible to the bit, whatever
@@ -25,9 +32,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser = subparsers.add_parser(
         "robustness",
         help="probability of a hard (subcritical) onset under parameter uncertainty",
-        description="Monte Carlo over the uncertain parameters: probability of a hard onset with"
-        " a Wilson interval, failures by status, quantiles of l1, critical value, frequency and"
-        " amplitude coefficients, and which tolerances drive l1.",
+        description=DESCRIPTION,
         epilog=EXAMPLE,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )

@@ -37,7 +37,7 @@ import numpy as np
 
 from lyacomp.errors import StudyError
 from lyacomp.status import Status
-from lyacomp.studies.robustness import study_setup
+from lyacomp.studies.robustness import fixed_values, study_setup
 from lyacomp.studies.uncertainty import LogNormal, chunk_rng, draw_scores
 
 SCALARS = ("l1", "critical_value", "omega", "transversality", "period")
@@ -109,8 +109,9 @@ class DesignSpace:
             raise StudyError(f"step must be a positive number; got {step}")
         self.ev = ev
         self.free = tuple(free)
-        self.fixed = {k: float(v) for k, v in (fixed or {}).items() if k not in free}
-        start = {**ev.nominal, **{k: float(v) for k, v in (fixed or {}).items()}}
+        given = fixed_values(fixed)
+        self.fixed = {k: v for k, v in given.items() if k not in free}
+        start = {**ev.nominal, **given}
         self.x0 = np.array([start[n] for n in free], dtype=float)
         self.scale = np.where(self.x0 != 0.0, np.abs(self.x0), 1.0)
         self.step = step
@@ -361,7 +362,8 @@ class RobustStatistic:
             else:
                 l1 = np.where(bad, math.inf, l1)
         if self.statistic == "quantile":
-            q = float(np.quantile(l1, self.level))
+            with np.errstate(invalid="ignore"):  # inf - inf when interpolating failures
+                q = float(np.quantile(l1, self.level))
             if not math.isfinite(q):
                 raise DesignPointError(
                     f"more than {100 * (1 - self.level):g}% of the samples have no usable Hopf"

@@ -433,11 +433,21 @@ def resolve_seed(seed: int | None) -> int:
     return _check_count(seed, "seed", 0)
 
 
+def fixed_values(fixed: Mapping[str, object] | None) -> dict[str, float]:
+    """Check that fixed parameter values are numbers."""
+    out: dict[str, float] = {}
+    for name, value in (fixed or {}).items():
+        if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+            raise StudyError(f"fixed value of '{name}' must be a number; got {value!r}")
+        out[str(name)] = float(value)
+    return out
+
+
 def study_setup(
     ev: Any, uncertainty: Mapping[str, object] | None, fixed: Mapping[str, float] | None
 ) -> tuple[UncertaintySpec, dict[str, float]]:
     """Parse the uncertainty for ``ev`` and check the fixed overrides."""
-    fixed = {str(k): float(v) for k, v in (fixed or {}).items()}
+    fixed = fixed_values(fixed)
     unknown = [k for k in fixed if k not in ev.parameters]
     if unknown:
         raise StudyError(

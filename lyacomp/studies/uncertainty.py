@@ -175,8 +175,13 @@ class UncertaintySpec:
         return out
 
     def describe(self) -> list[str]:
-        """One line per uncertain parameter, for reports."""
-        return [f"{n} ~ {m.describe()}" for n, m in zip(self.names, self.marginals, strict=True)]
+        """One line per uncertain parameter (and per correlated pair), for reports."""
+        lines = [f"{n} ~ {m.describe()}" for n, m in zip(self.names, self.marginals, strict=True)]
+        for i, j in zip(*np.triu_indices(self.dimension, 1), strict=True):
+            if self.correlation[i, j]:
+                rho = self.correlation[i, j]
+                lines.append(f"corr({self.names[i]}, {self.names[j]}) = {rho:g} (normal scores)")
+        return lines
 
 
 def _number(value: object, where: str) -> float:
@@ -347,7 +352,11 @@ def draw_scores(rng: np.random.Generator, n: int, d: int, method: str = "random"
     if method == "lhs":
         from scipy.stats import qmc
 
-        u = qmc.LatinHypercube(d, rng=rng).random(n) if n else np.empty((0, d))
+        try:
+            design = qmc.LatinHypercube(d, rng=rng)
+        except TypeError:  # scipy < 1.15 names the generator argument `seed`
+            design = qmc.LatinHypercube(d, seed=rng)
+        u = design.random(n) if n else np.empty((0, d))
         return _special().ndtri(np.clip(u, _U_MIN, 1.0 - _U_MIN))
     raise StudyError(f"sampling method must be one of {', '.join(METHODS)}; got {method!r}")
 
