@@ -4,5 +4,15 @@ from .cache import cache_key, entry_dir, install_entry, key_lock, new_build_dir,
 from .compiler import Toolchain, toolchain
 from .extension import build_extension, load_extension
 
-__all__ = ["Toolchain", "build_extension", "cache_key", "entry_dir", "install_entry", "key_lock",
-           "load_extension", "new_build_dir", "read_entry", "toolchain"]
+__all__ = [
+    "Toolchain",
+    "build_extension",
+    "cache_key",
+    "entry_dir",
+    "install_entry",
+    "key_lock",
+    "load_extension",
+    "new_build_dir",
+    "read_entry",
+    "toolchain",
+]

@@ -31,8 +31,13 @@ META_NAME = "meta.json"
 def cache_key(*parts: str | bytes) -> str:
     """SHA-256 over everything that shapes the binary."""
     digest = hashlib.sha256()
-    for part in (__version__, cffi.__version__, sys.implementation.cache_tag or "",
-                 sys.version, *parts):
+    for part in (
+        __version__,
+        cffi.__version__,
+        sys.implementation.cache_tag or "",
+        sys.version,
+        *parts,
+    ):
         data = part.encode() if isinstance(part, str) else part
         digest.update(len(data).to_bytes(8, "little"))
         digest.update(data)
@@ -58,8 +63,10 @@ def _ensure_dir(path: Path) -> None:
     try:
         path.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
-        raise LyacompError(f"cannot create the cache directory {path}: {exc}; set "
-                           "LYACOMP_CACHE_DIR to a writable directory") from None
+        raise LyacompError(
+            f"cannot create the cache directory {path}: {exc}; set "
+            "LYACOMP_CACHE_DIR to a writable directory"
+        ) from None
 
 
 @contextmanager
@@ -87,7 +94,8 @@ def key_lock(cache_dir: Path, key: str, timeout: float) -> Iterator[None]:
                         raise CacheLockTimeout(
                             f"waited {timeout:.0f} s for another process building the same "
                             f"model (lock file {path}); if no such process runs, delete the "
-                            "lock file, or raise LYACOMP_LOCK_TIMEOUT") from None
+                            "lock file, or raise LYACOMP_LOCK_TIMEOUT"
+                        ) from None
                     time.sleep(0.05)
         yield
     finally:
@@ -103,11 +111,11 @@ def new_build_dir(cache_dir: Path, key: str) -> Path:
     return path
 
 
-def install_entry(build_dir: Path, cache_dir: Path, key: str, meta: dict[str, Any],
-                  keep_build: bool) -> Path:
+def install_entry(
+    build_dir: Path, cache_dir: Path, key: str, meta: dict[str, Any], keep_build: bool
+) -> Path:
     """Write the metadata (commit marker) and move the finished build into place."""
-    (build_dir / META_NAME).write_text(json.dumps(meta, indent=2, sort_keys=True),
-                                       encoding="utf-8")
+    (build_dir / META_NAME).write_text(json.dumps(meta, indent=2, sort_keys=True), encoding="utf-8")
     target = entry_dir(cache_dir, key)
     _ensure_dir(target.parent)
     if target.exists():  # an unfinished leftover (no metadata): replace it

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import hashlib
+import json
 import os
 import platform
 import shlex
@@ -39,8 +40,15 @@ class Toolchain:
 
     def identity(self) -> str:
         """Everything about the toolchain that changes the binary (for the cache key)."""
-        return "\n".join([shlex.join(self.command), self.version, shlex.join(self.compile_flags),
-                          shlex.join(self.link_flags), _cpu_identity()])
+        return "\n".join(
+            [
+                shlex.join(self.command),
+                self.version,
+                shlex.join(self.compile_flags),
+                shlex.join(self.link_flags),
+                _cpu_identity(),
+            ]
+        )
 
 
 def _cpu_identity() -> str:
@@ -61,8 +69,10 @@ def _find_command(config: BuildConfig) -> tuple[str, ...]:
     if config.compiler:
         parts = tuple(shlex.split(config.compiler))
         if not parts or shutil.which(parts[0]) is None:
-            raise CompilerNotFoundError(f"the C compiler {config.compiler!r} (from LYACOMP_CC, "
-                                        f"CC or the build settings) was not found. {_INSTALL_HINT}")
+            raise CompilerNotFoundError(
+                f"the C compiler {config.compiler!r} (from LYACOMP_CC, "
+                f"CC or the build settings) was not found. {_INSTALL_HINT}"
+            )
         return parts
     for name in ("cc", "gcc", "clang"):
         path = shutil.which(name)
@@ -71,7 +81,9 @@ def _find_command(config: BuildConfig) -> tuple[str, ...]:
     raise CompilerNotFoundError(f"no C compiler (cc, gcc or clang) on PATH. {_INSTALL_HINT}")
 
 
-def _run(cmd: list[str], cwd: str | None = None, timeout: float = 600) -> subprocess.CompletedProcess:
+def _run(
+    cmd: list[str], cwd: str | None = None, timeout: float = 600
+) -> subprocess.CompletedProcess:
     return subprocess.run(cmd, cwd=cwd, capture_output=True, text=True, timeout=timeout)
 
 
@@ -80,11 +92,84 @@ def _probe(command: tuple[str, ...], flags: list[str], source: str) -> bool:
         src = Path(tmp) / "probe.c"
         src.write_text(source)
         try:
-            out = _run([*command, *flags, str(src), "-o", str(Path(tmp) / "probe.so")], cwd=tmp,
-                       timeout=60)
+            out = _run(
+                [*command, *flags, str(src), "-o", str(Path(tmp) / "probe.so")], cwd=tmp, timeout=60
+            )
         except (OSError, subprocess.TimeoutExpired):
             return False
         return out.returncode == 0
+
+
+def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[str], bool]:
+    """Which optional flags the compiler accepts: -march=native, -fopenmp."""
+    compile_flags = list(BASE_FLAGS)
+    shared = _shared_flags()
+    test_src = "int lyacomp_probe(void) { return 0; }\n"
+    if not _probe(command, [*compile_flags, *shared], test_src):
+        raise CompilerNotFoundError(
+            f"the C compiler {command[0]} cannot build a shared library "
+            f"with {shlex.join(compile_flags + shared)}. {_INSTALL_HINT}"
+        )
+    if config.native and _probe(command, [*compile_flags, "-march=native", *shared], test_src):
+        compile_flags.append("-march=native")
+    openmp = False
+    if config.openmp:
+        omp_src = (
+            "#include <omp.h>\nint lyacomp_probe(void) { int s = 0;\n"
+            "#pragma omp parallel for reduction(+:s)\n"
+            "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n"
+        )
+        openmp = _probe(command, [*compile_flags, "-fopenmp", *shared], omp_src)
+    if openmp:
+        compile_flags.append("-fopenmp")
+    return compile_flags, openmp
+
+
+def _shared_flags() -> list[str]:
+    return ["-shared", "-undefined", "dynamic_lookup"] if sys.platform == "darwin" else ["-shared"]
+
+
+def _remembered_probe(
+    command: tuple[str, ...], version: str, config: BuildConfig
+) -> tuple[list[str], bool]:
+    """Probe results, remembered in the cache: probing costs a few compiler runs."""
+    path = shutil.which(command[0]) or command[0]
+    try:
+        stat = os.stat(path)
+        stamp = f"{os.path.realpath(path)}|{stat.st_size}|{stat.st_mtime_ns}"
+    except OSError:
+        stamp = path
+    ident = "|".join(
+        [
+            *command,
+            stamp,
+            version,
+            *BASE_FLAGS,
+            str(config.native),
+            str(config.openmp),
+            _cpu_identity(),
+            sys.platform,
+        ]
+    )
+    record = (
+        config.cache_dir
+        / "toolchains"
+        / (hashlib.sha256(ident.encode()).hexdigest()[:32] + ".json")
+    )
+    try:
+        data = json.loads(record.read_text(encoding="utf-8"))
+        return list(data["compile_flags"]), bool(data["openmp"])
+    except (OSError, ValueError, KeyError, TypeError):
+        pass
+    flags, openmp = _probe_flags(command, config)
+    try:
+        record.parent.mkdir(parents=True, exist_ok=True)
+        tmp = record.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(json.dumps({"compile_flags": flags, "openmp": openmp}), encoding="utf-8")
+        os.replace(tmp, record)
+    except OSError:
+        pass  # an unwritable cache only costs the probes next time
+    return flags, openmp
 
 
 @lru_cache(maxsize=8)
@@ -94,30 +179,14 @@ def toolchain(config: BuildConfig) -> Toolchain:
     try:
         out = _run([*command, "--version"], timeout=30)
     except (OSError, subprocess.TimeoutExpired) as exc:
-        raise CompilerNotFoundError(f"the C compiler {command[0]} does not run: {exc}. "
-                                    f"{_INSTALL_HINT}") from None
-    version = (out.stdout or out.stderr).strip().splitlines()[0] if (out.stdout or out.stderr) \
-        else "unknown"
-    compile_flags = list(BASE_FLAGS)
-    shared = ["-shared"]
-    if sys.platform == "darwin":
-        shared += ["-undefined", "dynamic_lookup"]
-    test_src = "int lyacomp_probe(void) { return 0; }\n"
-    if not _probe(command, [*compile_flags, *shared], test_src):
-        raise CompilerNotFoundError(f"the C compiler {command[0]} cannot build a shared library "
-                                    f"with {shlex.join(compile_flags + shared)}. {_INSTALL_HINT}")
-    if config.native and _probe(command, [*compile_flags, "-march=native", *shared], test_src):
-        compile_flags.append("-march=native")
-    openmp = False
-    if config.openmp:
-        omp_src = ("#include <omp.h>\nint lyacomp_probe(void) { int s = 0;\n"
-                   "#pragma omp parallel for reduction(+:s)\n"
-                   "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n")
-        openmp = _probe(command, [*compile_flags, "-fopenmp", *shared], omp_src)
-    if openmp:
-        compile_flags.append("-fopenmp")
+        raise CompilerNotFoundError(
+            f"the C compiler {command[0]} does not run: {exc}. {_INSTALL_HINT}"
+        ) from None
+    text = (out.stdout or out.stderr).strip()
+    version = text.splitlines()[0] if text else "unknown"
+    compile_flags, openmp = _remembered_probe(command, version, config)
     compile_flags.extend(config.extra_flags)
-    link_flags = [*shared, "-lm"] + (["-fopenmp"] if openmp else [])
+    link_flags = [*_shared_flags(), "-lm"] + (["-fopenmp"] if openmp else [])
     return Toolchain(command, version, tuple(compile_flags), tuple(link_flags), openmp)
 
 
@@ -128,22 +197,34 @@ def python_include_dirs() -> list[str]:
 
 def compile_shared(tc: Toolchain, source: Path, output: Path, include_dirs: list[str]) -> float:
     """Compile one C file into a shared library; returns seconds taken."""
-    cmd = [*tc.command, *tc.compile_flags, *(f"-I{d}" for d in include_dirs), str(source),
-           "-o", str(output), *tc.link_flags]
+    cmd = [
+        *tc.command,
+        *tc.compile_flags,
+        *(f"-I{d}" for d in include_dirs),
+        str(source),
+        "-o",
+        str(output),
+        *tc.link_flags,
+    ]
     start = time.perf_counter()
     try:
         out = _run(cmd, cwd=str(source.parent))
     except subprocess.TimeoutExpired:
-        raise BuildError(f"the C compiler took more than 600 s on {source}", shlex.join(cmd), "",
-                         str(source)) from None
+        raise BuildError(
+            f"the C compiler took more than 600 s on {source}", shlex.join(cmd), "", str(source)
+        ) from None
     except OSError as exc:
         raise CompilerNotFoundError(f"cannot run {cmd[0]}: {exc}. {_INSTALL_HINT}") from None
     if out.returncode != 0:
         text = (out.stderr + out.stdout).strip()
-        raise BuildError(f"the C compiler rejected the generated code for {source.name} "
-                         f"(exit {out.returncode}); source kept at {source}\n"
-                         f"command: {shlex.join(cmd)}\n{text[-4000:]}",
-                         shlex.join(cmd), text, str(source))
+        raise BuildError(
+            f"the C compiler rejected the generated code for {source.name} "
+            f"(exit {out.returncode}); source kept at {source}\n"
+            f"command: {shlex.join(cmd)}\n{text[-4000:]}",
+            shlex.join(cmd),
+            text,
+            str(source),
+        )
     return time.perf_counter() - start
 
 

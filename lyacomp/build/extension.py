@@ -44,10 +44,17 @@ def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str)
         ffi.emit_c_code(str(wrapper))
     library = build_dir / f"{name}{shared_library_suffix()}"
     seconds = compile_shared(tc, wrapper, library, python_include_dirs())
-    return {"module": name, "library": library.name, "prefix": sources.prefix,
-            "compile_seconds": round(seconds, 3), "compiler": list(tc.command),
-            "compiler_version": tc.version, "flags": list(tc.compile_flags),
-            "openmp": tc.openmp, "built_at": time.strftime("%Y-%m-%dT%H:%M:%S%z")}
+    return {
+        "module": name,
+        "library": library.name,
+        "prefix": sources.prefix,
+        "compile_seconds": round(seconds, 3),
+        "compiler": list(tc.command),
+        "compiler_version": tc.version,
+        "flags": list(tc.compile_flags),
+        "openmp": tc.openmp,
+        "built_at": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
+    }
 
 
 _LOADED: dict[str, ModuleType] = {}
@@ -67,7 +74,8 @@ def load_extension(entry: Path, meta: dict[str, Any]) -> ModuleType:
         module = importlib.util.module_from_spec(spec)
         loader.exec_module(module)
     except ImportError as exc:
-        raise BuildError(f"cannot load the compiled model {path}: {exc}; delete {entry} to "
-                         "force a rebuild") from exc
+        raise BuildError(
+            f"cannot load the compiled model {path}: {exc}; delete {entry} to force a rebuild"
+        ) from exc
     _LOADED[name] = module
     return module
