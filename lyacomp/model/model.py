@@ -15,6 +15,9 @@ import sympy as sp
 from ..errors import ModelError
 from .expr_parser import is_valid_name, parse_expression
 
+MAX_STATES = 100
+"""Dense per-sample work arrays live on the (thread) stack; this keeps them small."""
+
 
 def _as_float(value: Any, where: str) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
@@ -97,6 +100,11 @@ class Model:
         if len(self.states) < 2:
             raise ModelError(
                 f"{src}: a Hopf bifurcation needs at least 2 states, got {len(self.states)}"
+            )
+        if len(self.states) > MAX_STATES:
+            raise ModelError(
+                f"{src}: {len(self.states)} states; lyacomp's dense kernels handle at most "
+                f"{MAX_STATES} (reduce the model, e.g. by eliminating fast states)"
             )
         seen: dict[str, str] = {}
         for table, names in (
