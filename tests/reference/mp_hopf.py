@@ -5,8 +5,9 @@ different route: instead of the augmented eigenvector system, it solves
 
     F(x, mu) = 0,   Re det(A - i w I) = 0,   Im det(A - i w I) = 0
 
-for ``(x, mu, w)`` with a damped Newton iteration whose Jacobian comes from central
-differences at 50 significant digits. Eigenvectors come from ``mpmath.eig``; the first
+for ``(x, mu, w)``: a damped Newton iteration in double precision (central-difference
+Jacobian), then ``mpmath.findroot`` at 40 significant digits. Eigenvectors come from
+``mpmath.eig`` (right and left); every derivative comes from ``sympy.diff``. The first
 Lyapunov coefficient, transversality and amplitude coefficients follow the projection
 formulas of /work/shared/math.md (Kuznetsov, Elements of Applied Bifurcation Theory,
 3rd ed. 2004, Chapter 3) with ``<q, q> = 1`` and ``<p, q> = 1``.
@@ -22,7 +23,7 @@ import mpmath
 import numpy as np
 import sympy as sp
 
-DEFAULT_DPS = 50
+DEFAULT_DPS = 40
 
 mp = mpmath.mp
 
@@ -57,8 +58,8 @@ def _inner(u: Sequence, v: Sequence):
 
 
 def _lambdify(args: Sequence[sp.Symbol], exprs: Sequence[sp.Expr], modules: str = "mpmath"):
-    # dummify=True keeps user names such as "lambda" or "E" from clashing with Python/mpmath.
-    return sp.lambdify(list(args), list(exprs), modules=modules, dummify=True)
+    # The arguments are already renamed to plain identifiers (see MpHopf.__init__).
+    return sp.lambdify(list(args), list(exprs), modules=modules, dummify=False)
 
 
 class MpHopf:
@@ -79,11 +80,15 @@ class MpHopf:
         self.parameters = tuple(parameters)
         self.bifurcation = bifurcation
         self.n = len(self.states)
-        rhs = [sp.sympify(f) for f in rhs]
         if len(rhs) != self.n:
             raise ValueError("need one right-hand side per state")
-        args = self.states + self.parameters
-        x = self.states
+        # Rename every symbol to a plain identifier once, so user names such as "lambda" or
+        # "E" cannot clash with Python or mpmath (cheaper than lambdify's per-call dummify).
+        args = tuple(sp.Symbol(f"arg{i}_") for i in range(self.n + len(self.parameters)))
+        rename = dict(zip(self.states + self.parameters, args, strict=True))
+        rhs = [sp.sympify(f).xreplace(rename) for f in rhs]
+        x = args[: self.n]
+        self._x = x
         jac = [[sp.diff(f, xj) for xj in x] for f in rhs]
         self._second = self._tensor_entries(rhs, 2)
         self._third = self._tensor_entries(rhs, 3)
@@ -97,15 +102,16 @@ class MpHopf:
         if bifurcation is not None:
             if bifurcation not in self.parameters:
                 raise ValueError(f"bifurcation parameter {bifurcation} is not among the parameters")
-            self._f_mu = _lambdify(args, [sp.diff(f, bifurcation) for f in rhs])
-            self._j_mu = _lambdify(args, [sp.diff(e, bifurcation) for row in jac for e in row])
+            mu = rename[bifurcation]
+            self._f_mu = _lambdify(args, [sp.diff(f, mu) for f in rhs])
+            self._j_mu = _lambdify(args, [sp.diff(e, mu) for row in jac for e in row])
 
     def _tensor_entries(self, rhs: Sequence[sp.Expr], order: int):
         """Non-zero symmetric derivative entries ((i, j, k[, l]), expr), one per sorted index."""
         entries = []
         for i, f in enumerate(rhs):
             for combo in itertools.combinations_with_replacement(range(self.n), order):
-                expr = sp.diff(f, *[self.states[j] for j in combo])
+                expr = sp.diff(f, *[self._x[j] for j in combo])
                 if expr != 0:
                     entries.append(((i, *combo), expr))
         return entries
@@ -178,7 +184,7 @@ class MpHopf:
         """Root of a square system: double-precision Newton, then mpmath.findroot polishing.
 
         The polishing step reuses the final double-precision Jacobian (a chord iteration): it
-        converges linearly with rate ~1e-8, so a handful of 50-digit residual evaluations do.
+        converges linearly with rate ~1e-8, so a handful of 40-digit residual evaluations do.
         """
         with np.errstate(all="ignore"):  # a diverging start is reported as an error instead
             z, jac = MpHopf._double_newton(residual_np, np.array([float(v) for v in z0]))
@@ -215,21 +221,50 @@ class MpHopf:
         with mpmath.workdps(dps):
             return self._solve(values, state_guess, omega_guess)
 
-    def _solve(self, values, state_guess, omega_guess) -> MpHopfPoint:
-        n = self.n
-        theta = self._theta(values)
+    def equilibrium(
+        self, values: Mapping, state_guess: Sequence[float], dps: int = DEFAULT_DPS
+    ) -> tuple[mpmath.mpf, ...]:
+        """The equilibrium F(x) = 0 at the given parameter values, from ``state_guess``."""
+        with mpmath.workdps(dps):
+            return tuple(self._equilibrium(self._theta(values), state_guess))
+
+    def _equilibrium(self, theta: list, state_guess: Sequence[float]) -> list:
         theta_np = [float(v) for v in theta]
-        x = [float(v) for v in state_guess]
-        if self.bifurcation is None:
-            x = self._locate(
-                lambda z: self._f_np(*z, *theta_np),
-                lambda z: self._f(*self._args(z, theta)),
-                x,
-            )
-            return self._quantities(x, theta, None, None)
+        return self._locate(
+            lambda z: self._f_np(*z, *theta_np),
+            lambda z: self._f(*self._args(z, theta)),
+            [float(v) for v in state_guess],
+        )
+
+    def rough_location(
+        self, values: Mapping, state_guess: Sequence[float]
+    ) -> tuple[float, float] | None:
+        """(critical value, omega) in double precision from these guesses, or None.
+
+        Cheap; meant for probing whether several starting guesses reach the same Hopf point.
+        """
+        theta = self._theta(values)
+        residual_np, _ = self._hopf_residuals(theta)
+        z0 = self._hopf_start(theta, state_guess)
+        try:
+            with np.errstate(all="ignore"):
+                z, _ = self._double_newton(residual_np, np.array(z0))
+        except ReferenceSolveError:
+            return None
+        return float(z[self.n]), abs(float(z[self.n + 1]))
+
+    def _hopf_start(self, theta: list, state_guess: Sequence[float], omega_guess=None) -> list:
         idx = self.parameters.index(self.bifurcation)
+        x = [float(v) for v in state_guess]
         if omega_guess is None:
             omega_guess = abs(mpmath.im(self._critical_eigenvalue(x, theta)))
+        return [*x, float(theta[idx]), float(omega_guess)]
+
+    def _hopf_residuals(self, theta: list):
+        """F = 0 and det(A - i w I) = 0 in the unknowns (x, mu, w), in double and mp precision."""
+        n = self.n
+        idx = self.parameters.index(self.bifurcation)
+        theta_np = [float(v) for v in theta]
 
         def residual_np(z):
             th = list(theta_np)
@@ -245,14 +280,25 @@ class MpHopf:
             det = mpmath.det(self._matrix(self._jac(*args)) - 1j * z[n + 1] * mpmath.eye(n))
             return [*self._f(*args), mpmath.re(det), mpmath.im(det)]
 
-        z = self._locate(residual_np, residual_mp, [*x, float(theta[idx]), float(omega_guess)])
+        return residual_np, residual_mp
+
+    def _solve(self, values, state_guess, omega_guess) -> MpHopfPoint:
+        n = self.n
+        theta = self._theta(values)
+        if self.bifurcation is None:
+            return self._quantities(self._equilibrium(theta, state_guess), theta, None, None)
+        idx = self.parameters.index(self.bifurcation)
+        residual_np, residual_mp = self._hopf_residuals(theta)
+        z = self._locate(
+            residual_np, residual_mp, self._hopf_start(theta, state_guess, omega_guess)
+        )
         theta[idx] = z[n]
         return self._quantities(z[:n], theta, idx, abs(z[n + 1]))
 
-    def _critical_eigenvalue(self, x, theta):
-        """Eigenvalue with positive imaginary part closest to the imaginary axis."""
-        eigs = mpmath.eig(self._matrix(self._jac(*self._args(x, theta))), right=False)
-        return self._pick(eigs, None)
+    def _critical_eigenvalue(self, x, theta) -> complex:
+        """Upper eigenvalue nearest the imaginary axis, in double precision (a starting guess)."""
+        jac = np.reshape(self._jac_np(*[float(v) for v in self._args(x, theta)]), (self.n, self.n))
+        return self._pick([mpmath.mpc(e) for e in np.linalg.eigvals(jac)], None)
 
     @staticmethod
     def _pick(eigs, omega):
@@ -268,22 +314,33 @@ class MpHopf:
         n = self.n
         args = self._args(x, theta)
         a = self._matrix(self._jac(*args))
-        eigs, right = mpmath.eig(a)
+        eigs, left, right = mpmath.eig(a, left=True, right=True)
         lam = self._pick(eigs, omega_hint)
         omega = mpmath.im(lam)
-        # The pair must be isolated: exactly one eigenvalue near i*omega and none other near i*R.
-        close = [e for e in eigs if abs(e - 1j * omega) < mpmath.mpf(10) ** (-(mp.dps // 3))]
-        if mu_index is not None and len(close) != 1:
+        # The pair must be simple and isolated: exactly one eigenvalue at i*omega, one at
+        # -i*omega, and no other eigenvalue on the imaginary axis.
+        tiny = mpmath.mpf(10) ** (-(mp.dps // 3))
+        on_axis = [e for e in eigs if abs(mpmath.re(e)) < tiny]
+        if mu_index is not None and len(on_axis) != 2:
             raise ReferenceSolveError(f"critical pair not simple/isolated: {eigs}")
         k = min(range(n), key=lambda j: abs(eigs[j] - lam))
         q = [right[i, k] for i in range(n)]
         qn = mpmath.sqrt(mpmath.re(_inner(q, q)))
         q = [v / qn for v in q]
-        eigs_t, right_t = mpmath.eig(a.T)
-        kt = min(range(n), key=lambda j: abs(eigs_t[j] - mpmath.conj(lam)))
-        p = [right_t[i, kt] for i in range(n)]
+        # Row k of the left eigenvectors is y^H with y^H A = i w y^H; as A is real, A^T p = -i w p
+        # holds for p = conj(y).
+        p = [mpmath.conj(left[k, i]) for i in range(n)]
         scale = mpmath.conj(_inner(p, q))
         p = [v / scale for v in p]
+        aq = a * mpmath.matrix(q)
+        atp = a.T * mpmath.matrix(p)
+        residual = max(
+            max(abs(aq[i] - lam * q[i]) for i in range(n)),
+            max(abs(atp[i] - mpmath.conj(lam) * p[i]) for i in range(n))
+            / mpmath.norm(mpmath.matrix(p)),
+        )
+        if residual > mpmath.mpf(10) ** (-(mp.dps // 2)) * (1 + mpmath.mnorm(a, 1)):
+            raise ReferenceSolveError(f"inaccurate critical eigenvectors (residual {residual})")
 
         second = self._expand(self._second, self._d2(*args))
         third = self._expand(self._third, self._d3(*args))
@@ -341,12 +398,7 @@ class MpHopf:
             def real_part(mu):
                 th = list(theta)
                 th[idx] = mu
-                th_np = [float(v) for v in th]
-                xs = self._locate(
-                    lambda z: self._f_np(*z, *th_np),
-                    lambda z: self._f(*self._args(z, th)),
-                    [float(v) for v in point.equilibrium],
-                )
+                xs = self._equilibrium(th, point.equilibrium)
                 a = self._matrix(self._jac(*self._args(xs, th)))
                 eigs = mpmath.eig(a, right=False)
                 return mpmath.re(min(eigs, key=lambda e: abs(e - 1j * point.omega)))
