@@ -46,6 +46,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
+    from ..studies.demo import jsonable
     from ..studies.maps import Axis, find_switches, parameter_map
 
     if args.line is not None:
@@ -62,12 +63,20 @@ def run(args: argparse.Namespace) -> int:
             ev, axis.name, axis.lo, axis.hi, axis.n, fixed, threads=args.threads
         )
         if args.json:
-            print(json.dumps({"model": model.name, "switches": [s.to_dict() for s in switches]}))
+            doc = {"model": model.name, "switches": [s.to_dict() for s in switches]}
+            print(json.dumps(jsonable(doc), allow_nan=False))
             return 0
         print(f"{model.name}: sign changes of l1 along {axis.name} in [{axis.lo:g}, {axis.hi:g}]")
         if not switches:
             print("  none found (l1 keeps one sign where a Hopf point was found)")
         for s in switches:
+            if not s.resolved:
+                print(
+                    f"  between {s.parameter} = {s.bracket[0]:.10g} and {s.bracket[1]:.10g}: "
+                    f"{s.before} -> {s.after}, but root finding met a point without a Hopf "
+                    "point; refine the line"
+                )
+                continue
             print(
                 f"  {s.parameter} = {s.value:.10g}: {s.before} -> {s.after} as {s.parameter} "
                 f"increases; critical {ev.bifurcation} = {s.critical_value:.10g}, "
@@ -84,7 +93,10 @@ def run(args: argparse.Namespace) -> int:
     png = Path(args.out or f"{model.name}_map.png")
     data = Path(args.data) if args.data else png.with_suffix(".csv")
     try:
-        written = [plot_map(pmap, png, title=f"{model.name}: onset map"), *pmap.save(data)]
+        values = {**ev.nominal, **fixed}
+        mark = (values[x.name], values[y.name])
+        picture = plot_map(pmap, png, title=f"{model.name}: onset map", mark=mark)
+        written = [picture, *pmap.save(data)]
     except OSError as exc:
         raise StudyError(f"cannot write the map files: {exc}") from None
     if args.json:

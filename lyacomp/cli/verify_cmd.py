@@ -9,6 +9,8 @@ from pathlib import Path
 from ..errors import StudyError
 from ..pipeline import compile_model
 from ..runtime import CAUTION
+from ..studies.demo import jsonable
+from ..studies.verify import DEFAULT_GROWTH, OUTCOME_WORDS, check_by_simulation
 from .common import add_model_args, model_from_args, overrides_from_args
 
 EXAMPLE = """examples:
@@ -37,8 +39,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "--growth",
         type=float,
         default=None,
+        metavar="GROWTH",
         help="simulate where the equilibrium's growth rate is GROWTH times the frequency "
-        "(default 0.003)",
+        f"(default {DEFAULT_GROWTH:g})",
     )
     parser.add_argument(
         "--offset",
@@ -52,9 +55,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def run(args: argparse.Namespace) -> int:
-    from ..studies.demo import jsonable
     from ..studies.plots_verify import plot_simulation_check
-    from ..studies.verify import DEFAULT_GROWTH, check_by_simulation
 
     if args.growth is not None and args.offset is not None:
         raise StudyError("give --growth or --offset, not both")
@@ -106,8 +107,14 @@ def report(check) -> str:
         for run in check.runs:
             lines.append(
                 f"  started {run.label} the predicted cycle ({run.start_radius:g} x its radius): "
-                f"{run.outcome} at t = {run.t_end:.4g}"
+                f"{OUTCOME_WORDS[run.outcome]} (t = {run.t_end:.4g})"
             )
     verdict = "agrees with the prediction" if check.agrees else "DOES NOT agree with the prediction"
     lines.append(f"result: the simulation {verdict}")
+    if not check.agrees:
+        lines.append(
+            "  the predictions hold asymptotically near onset: repeat with a smaller --offset "
+            "(or --growth); agreement that improves as the offset shrinks confirms them, "
+            "and the offset where they fail bounds their useful range"
+        )
     return "\n".join(lines)

@@ -110,6 +110,7 @@ class ParameterMap:
     critical_value: np.ndarray
     omega: np.ndarray
     status_names: dict[int, str]
+    bifurcation: str = ""
     curve: np.ndarray = field(default_factory=lambda: np.empty((0, 2)))
     unresolved: int = 0
 
@@ -123,6 +124,7 @@ class ParameterMap:
             "x": {"name": self.x.name, "lo": self.x.lo, "hi": self.x.hi, "n": self.x.n},
             "y": {"name": self.y.name, "lo": self.y.lo, "hi": self.y.hi, "n": self.y.n},
             "fixed": dict(self.fixed),
+            "bifurcation": self.bifurcation,
             "counts": self.counts(),
             "zero_curve_points": int(len(self.curve)),
             "zero_curve_unresolved_segments": self.unresolved,
@@ -178,7 +180,12 @@ class ParameterMap:
 
 @dataclass(frozen=True)
 class Switch:
-    """A value of a parameter where l1 changes sign along a line."""
+    """A value of a parameter where l1 changes sign along a line.
+
+    ``bracket`` holds the neighbouring sample values that enclose it. When root finding
+    inside the bracket failed (no Hopf point found at some value in between), ``value``,
+    ``critical_value`` and ``omega`` are NaN and :attr:`resolved` is False.
+    """
 
     parameter: str
     value: float
@@ -186,10 +193,17 @@ class Switch:
     omega: float
     before: str
     after: str
+    bracket: tuple[float, float]
+
+    @property
+    def resolved(self) -> bool:
+        return math.isfinite(self.value)
 
     def to_dict(self) -> dict[str, Any]:
         return {
             "parameter": self.parameter,
+            "resolved": self.resolved,
+            "bracket": list(self.bracket),
             "value": self.value,
             "critical_value": self.critical_value,
             "omega": self.omega,
@@ -317,6 +331,7 @@ def parameter_map(
         critical_value=np.asarray(batch.critical_value, float).reshape(shape),
         omega=np.asarray(batch.omega, float).reshape(shape),
         status_names=dict(_STATUS_NAMES),
+        bifurcation=ev.bifurcation,
     )
     if locate_curve:
         _locate_zero_curve(ev, pmap)
@@ -368,14 +383,15 @@ def find_switches(
     crit = np.asarray(batch.critical_value, float)
     switches = []
     for i in np.flatnonzero(_sign_changes(l1)):
-        root = _bracket_root(ev, fixed, name, values[i], values[i + 1], float(crit[i]))
-        if root is None:
-            continue
-        res = ev(**{**fixed, name: root, ev.bifurcation: float(crit[i])})
         before, after = (
             ("supercritical", "subcritical") if l1[i] < 0 else ("subcritical", "supercritical")
         )
-        switches.append(
-            Switch(name, root, float(res.critical_value), float(res.omega), before, after)
-        )
+        bracket = (float(values[i]), float(values[i + 1]))
+        root = _bracket_root(ev, fixed, name, *bracket, float(crit[i]))
+        if root is None:
+            switches.append(Switch(name, math.nan, math.nan, math.nan, before, after, bracket))
+            continue
+        res = ev(**{**fixed, name: root, ev.bifurcation: float(crit[i])})
+        crit_value, omega = (res.critical_value, res.omega) if res.ok else (math.nan, math.nan)
+        switches.append(Switch(name, root, float(crit_value), float(omega), before, after, bracket))
     return switches

@@ -22,9 +22,15 @@ CLASS_COLOURS = {
 CURVE_COLOUR = "#000000"
 
 
-def plot_map(pmap: ParameterMap, path: str | Path, title: str | None = None) -> Path:
+def plot_map(
+    pmap: ParameterMap,
+    path: str | Path,
+    title: str | None = None,
+    mark: tuple[float, float] | None = None,
+) -> Path:
     """Write a PNG: left, the onset type of every grid point with the located l1 = 0
-    points; right, the critical value of the bifurcation parameter (where found)."""
+    points; right, the critical value of the bifurcation parameter (where found).
+    ``mark`` (x, y) draws the nominal design as a star."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -62,6 +68,21 @@ def plot_map(pmap: ParameterMap, path: str | Path, title: str | None = None) -> 
                 label="l1 = 0, located by root finding",
             )
         )
+    if mark is not None:
+        for ax in (left, right):
+            ax.plot(*mark, marker="*", ms=15, color="#ffffff", mec="#000000", mew=1.2, lw=0)
+        handles.append(
+            Line2D(
+                [],
+                [],
+                marker="*",
+                ms=11,
+                color="#ffffff",
+                mec="#000000",
+                lw=0,
+                label="nominal design",
+            )
+        )
     left.legend(
         handles=handles,
         loc="upper center",
@@ -75,8 +96,8 @@ def plot_map(pmap: ParameterMap, path: str | Path, title: str | None = None) -> 
     crit = np.ma.masked_invalid(pmap.critical_value)
     if crit.count():
         mesh = right.pcolormesh(xs, ys, crit, cmap="viridis", shading="nearest")
-        fig.colorbar(mesh, ax=right, label="critical value (onset)")
-    right.set_title("critical value where a Hopf point was found", fontsize=10)
+        fig.colorbar(mesh, ax=right, label=f"critical value of {pmap.bifurcation or 'onset'}")
+    right.set_title("onset (critical value) where a Hopf point was found", fontsize=10)
 
     for ax in (left, right):
         ax.set_xlabel(pmap.x.name)

@@ -6,7 +6,7 @@ from pathlib import Path
 
 import numpy as np
 
-from lyacomp.studies.verify import SimulationCheck
+from lyacomp.studies.verify import OUTCOME_WORDS, SimulationCheck
 
 #: Our own colour choices: blue and orange stay distinct under the common colour-vision
 #: deficiencies; the prediction is drawn in black dashes so it never relies on hue.
@@ -42,54 +42,58 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
 
     for row, j in enumerate(shown):
         ax = axes[row]
-        for run in check.runs:
-            ax.plot(
-                run.t,
-                run.x[:, j] - check.equilibrium[j],
-                color=RUN_COLOURS[run.label],
-                lw=0.6,
-                label=_RUN_WORDS[(check.criticality, run.label)],
-            )
+        # the outside run is drawn first: the (smaller) inside run stays visible on top
+        for run in reversed(check.runs):
+            ax.plot(run.t, run.x[:, j] - check.equilibrium[j], color=RUN_COLOURS[run.label], lw=0.6)
         amp = check.predicted_amplitude[j]
         for sign in (1, -1):
-            ax.axhline(
-                sign * amp,
-                color=PREDICTION_COLOUR,
-                ls="--",
-                lw=1.0,
-                label="predicted amplitude" if sign == 1 else None,
-            )
+            ax.axhline(sign * amp, color=PREDICTION_COLOUR, ls="--", lw=1.0)
         ax.set_ylabel(f"{check.state_names[j]} - equilibrium")
     axes[-1].set_xlabel("time")
-    axes[0].legend(loc="upper right", fontsize=8, framealpha=0.9)
+    axes[0].set_title("time series (dashed: predicted amplitude)", fontsize=10)
 
+    handles = []
+    settled = check.criticality == "supercritical"
     for run in check.runs:
-        phase.plot(
-            run.x[:, plane[0]],
-            run.x[:, plane[1]],
-            color=RUN_COLOURS[run.label],
-            lw=0.5,
-            label=_RUN_WORDS[(check.criticality, run.label)],
+        colour = RUN_COLOURS[run.label]
+        label = _RUN_WORDS[(check.criticality, run.label)]
+        if settled:
+            # the transient faint, the last period strong: the settled cycle stands out
+            phase.plot(run.x[:, plane[0]], run.x[:, plane[1]], color=colour, lw=0.4, alpha=0.35)
+            last = run.t >= run.t[-1] - check.predicted_period
+            label += "; bold: last period"
+        else:
+            last = slice(None)
+        (line,) = phase.plot(
+            run.x[last, plane[0]],
+            run.x[last, plane[1]],
+            color=colour,
+            lw=1.8 if settled else 0.6,
+            label=label,
         )
-    phase.plot(
+        handles.append(line)
+        if not settled:
+            phase.plot(run.x[-1, plane[0]], run.x[-1, plane[1]], "o", color=colour, ms=6)
+    if not settled:
+        handles.append(
+            phase.plot([], [], "o", color="#777777", ms=6, label="where the run stopped")[0]
+        )
+    (pred,) = phase.plot(
         check.predicted_cycle[:, plane[0]],
         check.predicted_cycle[:, plane[1]],
         color=PREDICTION_COLOUR,
         ls="--",
         lw=1.4,
-        label="predicted cycle (normal form)",
+        label="predicted cycle and amplitude (normal form)",
     )
-    phase.plot(
-        check.equilibrium[plane[0]],
-        check.equilibrium[plane[1]],
-        "kx",
-        ms=8,
-        label="equilibrium",
+    (eq,) = phase.plot(
+        check.equilibrium[plane[0]], check.equilibrium[plane[1]], "kx", ms=8, label="equilibrium"
     )
+    handles += [pred, eq]
     phase.set_xlabel(check.state_names[plane[0]])
     phase.set_ylabel(check.state_names[plane[1]])
-    phase.set_title("phase portrait", fontsize=10)
-    phase.legend(loc="lower right", fontsize=7, framealpha=0.9)
+    phase.set_title("phase portrait of the two most active states", fontsize=10)
+    fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=8, frameon=False)
 
     fig.suptitle(_title(check), fontsize=10)
     path = Path(path)
@@ -111,5 +115,8 @@ def _title(check: SimulationCheck) -> str:
             f"predicted {check.predicted_amplitude[j]:.4g}; period: measured "
             f"{check.measured.period:.4g}, predicted {check.predicted_period:.4g}"
         )
-    outcomes = ", ".join(f"{run.label}: {run.outcome} at t = {run.t_end:.3g}" for run in check.runs)
+    outcomes = ", ".join(
+        f"from {run.label}: {OUTCOME_WORDS[run.outcome]} (t = {run.t_end:.3g})"
+        for run in check.runs
+    )
     return f"{head}\n{outcomes}"

@@ -35,6 +35,10 @@ from lyacomp.errors import StudyError
 #: Ratio of the equilibrium's growth rate to the frequency used by default to pick
 #: how far past onset to simulate: ``|d * (mu - mu0)| = growth * omega``.
 DEFAULT_GROWTH = 0.003
+#: ... but never farther from onset than this fraction of |mu0| (when mu0 != 0): a model
+#: whose eigenvalues cross slowly would otherwise be simulated far outside the range
+#: where the near-onset predictions hold.
+MAX_RELATIVE_OFFSET = 0.01
 
 #: Integrator tolerances: relative, and absolute as a fraction of the cycle size.
 RTOL = 1e-10
@@ -46,12 +50,28 @@ SUBCRITICAL_INNER = 0.8
 SUBCRITICAL_OUTER = 1.25
 
 #: A trajectory has left the neighbourhood once its distance from the equilibrium
-#: exceeds this many predicted cycle radii; it has returned once below this fraction.
-ESCAPE_RADII = 4.0
-RETURN_FRACTION = 0.05
+#: exceeds this many predicted cycle radii; it has returned once its normal-form radius
+#: falls below this fraction of the predicted one. Near onset the radius moves
+#: monotonically, so a run from 0.8 that reaches 0.25 started inside the true unstable
+#: cycle; going on to 0 would only add the slow linear decay.
+ESCAPE_RADII = 3.0
+RETURN_FRACTION = 0.25
+#: A run that ends inside the neighbourhood "grew" if its mean normal-form radius over
+#: the last two periods exceeds its start by this factor.
+GREW_FACTOR = 1.2
+#: Outcomes of the outside run that show the predicted hard onset.
+OUTWARD = ("escaped", "grew")
+OUTCOME_WORDS = {
+    "settled": "settled on a cycle",
+    "drifting": "still drifting at the end",
+    "returned": "returned to the equilibrium",
+    "escaped": "left the neighbourhood",
+    "grew": "grew onto a larger oscillation",
+    "stayed": "neither returned nor left",
+}
 
 #: Radial transients decay like exp(-rate*t); integrate for this many e-foldings.
-SETTLE_EFOLDS = 8.0
+SETTLE_EFOLDS = 7.0
 #: Periods in each of the two measuring windows (the drift between them is reported).
 WINDOW_PERIODS = 10
 SAMPLES_PER_PERIOD = 512
@@ -61,6 +81,8 @@ MAX_PERIODS = 20000
 #: counts as settled.
 SETTLED_DRIFT = 1e-3
 PLOT_SAMPLES = 6000
+PLOT_PER_PERIOD = 24
+PLOT_MAX_SAMPLES = 250_000
 
 
 @dataclass(frozen=True)
@@ -144,14 +166,15 @@ class SimulationCheck:
     @property
     def agrees(self) -> bool:
         """Supercritical: settled on a cycle whose largest amplitude is within 10% of the
-        prediction. Subcritical: the inner run returned and the outer run escaped."""
+        prediction. Subcritical: the inner run returned and the outer run escaped or grew
+        onto a larger oscillation."""
         if self.criticality == "supercritical":
             if self.measured is None or not self.measured.settled:
                 return False
             main = int(np.argmax(self.predicted_amplitude))
             return abs(self.amplitude_error[main]) < 0.1
         outcomes = {run.label: run.outcome for run in self.runs}
-        return outcomes.get("inside") == "returned" and outcomes.get("outside") == "escaped"
+        return outcomes.get("inside") == "returned" and outcomes.get("outside") in OUTWARD
 
     def to_dict(self) -> dict[str, Any]:
         out: dict[str, Any] = {
@@ -224,10 +247,16 @@ def find_equilibrium(nm: NumericModel, guess: np.ndarray) -> np.ndarray:
     """Newton-type solve of F(x) = 0 from ``guess`` (scipy hybr with the exact Jacobian)."""
     from scipy.optimize import root
 
-    sol = root(lambda x: nm.rhs(0.0, x), np.asarray(guess, float), jac=nm.jacobian, method="hybr")
-    x = np.asarray(sol.x, float)
-    scale = max(1.0, float(np.max(np.abs(x))))
-    if not np.all(np.isfinite(x)) or np.max(np.abs(nm.rhs(0.0, x))) > 1e-9 * scale:
+    try:
+        sol = root(
+            lambda x: nm.rhs(0.0, x), np.asarray(guess, float), jac=nm.jacobian, method="hybr"
+        )
+        x = np.asarray(sol.x, float)
+        residual = float(np.max(np.abs(nm.rhs(0.0, x))))
+    except (ArithmeticError, ValueError):
+        residual = math.inf
+    scale = max(1.0, float(np.max(np.abs(guess))))
+    if not residual <= 1e-9 * scale:
         raise StudyError(
             "could not find the equilibrium past onset for the simulation; "
             "try a smaller offset (--offset) or growth"
@@ -280,18 +309,27 @@ def _integrate(
 ):
     from scipy.integrate import solve_ivp
 
-    sol = solve_ivp(
-        nm.rhs,
-        (0.0, t_end),
-        x0,
-        method="DOP853",
-        rtol=RTOL,
-        atol=ATOL_FRACTION * scale,
-        dense_output=True,
-        events=events,
-    )
+    try:
+        sol = solve_ivp(
+            nm.rhs,
+            (0.0, t_end),
+            x0,
+            method="DOP853",
+            rtol=RTOL,
+            atol=ATOL_FRACTION * scale,
+            dense_output=True,
+            events=events,
+        )
+    except (ArithmeticError, ValueError) as exc:
+        # math-module code raises (overflow, log of a negative) where numpy would give inf/nan
+        raise StudyError(
+            f"the simulation left the model's domain ({exc}); try a smaller offset or growth"
+        ) from None
     if sol.status == -1:
-        raise StudyError(f"the integration failed: {sol.message}")
+        raise StudyError(
+            f"the integration failed ({sol.message}); the trajectory may have left the "
+            "model's domain: try a smaller offset or growth"
+        )
     return sol
 
 
@@ -321,8 +359,14 @@ def settle_on_cycle(
     return sol, CycleMeasurement(amp_b, per, drift)
 
 
-def _samples(sol: Any, t_end: float) -> tuple[np.ndarray, np.ndarray]:
-    t = np.linspace(0.0, t_end, PLOT_SAMPLES)
+def _samples(sol: Any, t_end: float, period: float) -> tuple[np.ndarray, np.ndarray]:
+    """Plot samples: PLOT_PER_PERIOD per period over the whole run (so long transients are
+    not drawn aliased), capped at PLOT_MAX_SAMPLES, and 400 over the last two periods so
+    the final cycle is drawn smooth."""
+    n = int(min(max(PLOT_SAMPLES, PLOT_PER_PERIOD * t_end / period), PLOT_MAX_SAMPLES))
+    coarse = np.linspace(0.0, t_end, n)
+    fine = np.linspace(max(0.0, t_end - 2 * period), t_end, 400)
+    t = np.union1d(coarse, fine)
     return t, sol.sol(t).T
 
 
@@ -345,7 +389,7 @@ def check_by_simulation(
     bifurcation parameter is only the starting guess for the onset). The distance past
     onset is ``offset`` (in units of the bifurcation parameter; its sign is chosen from the
     predicted cycle side) or, by default, the one where the equilibrium's growth rate is
-    ``growth`` times the frequency.
+    ``growth`` times the frequency, capped at MAX_RELATIVE_OFFSET * |mu0|.
     """
     import lyacomp
 
@@ -369,7 +413,12 @@ def check_by_simulation(
 
     mu0, d, omega, l1 = res.critical_value, res.transversality, res.omega, res.l1
     side = 1.0 if res.cycle_side == "above" else -1.0
-    delta = side * (abs(offset) if offset is not None else growth * omega / abs(d))
+    if offset is not None:
+        delta = side * abs(offset)
+    else:
+        delta = side * growth * omega / abs(d)
+        if mu0 != 0:
+            delta = side * min(abs(delta), MAX_RELATIVE_OFFSET * abs(mu0))
     values = {**ev.nominal, **overrides, ev.bifurcation: mu0 + delta}
     nm = numeric_model(model, values)
     guess = np.array([res.equilibrium[s] for s in nm.state_names], float)
@@ -419,7 +468,7 @@ def check_by_simulation(
             nm, start(SUPERCRITICAL_START), period, settle, radius, reference, [leave]
         )
         outcome = "escaped" if meas is None else ("settled" if meas.settled else "drifting")
-        t, x = _samples(sol, float(sol.t[-1]))
+        t, x = _samples(sol, float(sol.t[-1]), period)
         run = SimulationRun("inside", SUPERCRITICAL_START, outcome, float(sol.t[-1]), t, x)
         check.runs.append(run)
         check.measured = meas
@@ -430,7 +479,12 @@ def check_by_simulation(
         if sol.status == 1:
             outcome = "returned" if sol.t_events[0].size else "escaped"
         else:
-            outcome = "stayed"
-        t, x = _samples(sol, float(sol.t[-1]))
+            # Still near the equilibrium at the end: a run that grew onto a larger
+            # oscillation inside the neighbourhood also shows the hard onset (the unstable
+            # cycle turning back in a fold onto a stable large one).
+            tail = np.linspace(sol.t[-1] - 2 * period, sol.t[-1], 200)
+            z = np.abs((sol.sol(tail).T - eq) @ np.conj(p)) / w
+            outcome = "grew" if z.mean() > GREW_FACTOR * fraction else "stayed"
+        t, x = _samples(sol, float(sol.t[-1]), period)
         check.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
     return check

@@ -3,6 +3,7 @@ predictions against DOP853 integration on models with published onsets."""
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -124,9 +125,8 @@ def lorenz(sigma: float = 10.0, beta: float = 8.0 / 3.0) -> lyacomp.Model:
     [
         tilted_normal_form(a=2.0, b=1.5, s=0.1, w=1.3, m=0.2),
         tilted_normal_form(a=0.5, b=-0.8, s=-0.4, w=0.7, m=-1.0),
-        brusselator(a=1.5, b_guess=3.0),
     ],
-    ids=["tilted-a", "tilted-b", "brusselator"],
+    ids=["tilted-a", "tilted-b"],
 )
 def test_supercritical_amplitude_and_period_agree(model):
     check = check_by_simulation(model)
@@ -139,13 +139,17 @@ def test_supercritical_amplitude_and_period_agree(model):
     assert check.agrees
 
 
-def test_brusselator_onset_matches_closed_form():
+def test_brusselator_cycle_agrees_and_onset_matches_closed_form():
     a = 1.5
     check = check_by_simulation(brusselator(a=a, b_guess=3.0))
     # Hopf at B = 1 + A^2 with period 2 pi / A (Prigogine & Lefever 1968, from memory)
     assert check.critical_value == pytest.approx(1 + a * a, rel=1e-9)
     assert check.predicted_period == pytest.approx(2 * math.pi / a, rel=1e-9)
+    assert check.criticality == "supercritical"
     assert check.value > check.critical_value  # the stable cycle lives above onset
+    assert check.measured is not None and check.measured.settled
+    assert np.all(np.abs(check.amplitude_error) < 0.10), check.to_dict()
+    assert abs(check.period_error) < 0.05
 
 
 def test_subcritical_lorenz_brackets_the_unstable_cycle():
@@ -176,3 +180,45 @@ def test_bad_requests_are_study_errors():
         check_by_simulation(model, growth=-1.0)
     with pytest.raises(StudyError, match="offset"):
         check_by_simulation(model, offset=1e-9)
+
+
+BRUSSELATOR_TOML = """
+name = "brusselator"
+[states]
+x = 1.5
+y = 2.0
+[parameters]
+A = 1.5
+B = 3.0
+[equations]
+x = "A - (B + 1)*x + x**2*y"
+y = "B*x - x**2*y"
+[bifurcation]
+parameter = "B"
+"""
+
+
+def test_verify_command_reports_agreement(tmp_path, capsys):
+    from lyacomp.cli import main
+
+    model = tmp_path / "brusselator.toml"
+    model.write_text(BRUSSELATOR_TOML)
+    png = tmp_path / "check.png"
+    code = main(["verify", str(model), "--set", "A=1.2", "--plot", str(png), "--json"])
+    out = json.loads(capsys.readouterr().out)
+    assert code == 0 and out["agrees"]
+    # Hopf at B = 1 + A^2 (Prigogine & Lefever 1968, from memory)
+    assert out["critical_value"] == pytest.approx(1 + 1.2**2, rel=1e-9)
+    assert abs(out["relative_error"]["amplitude"]["x"]) < 0.1
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+def test_verify_command_errors_are_one_line(tmp_path, capsys):
+    from lyacomp.cli import main
+
+    model = tmp_path / "brusselator.toml"
+    model.write_text(BRUSSELATOR_TOML)
+    code = main(["verify", str(model), "--growth", "0.01", "--offset", "0.1"])
+    err = capsys.readouterr().err
+    assert code == 2
+    assert err.startswith("lyacomp: error:") and err.count("\n") == 1
