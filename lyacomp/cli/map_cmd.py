@@ -12,8 +12,8 @@ from ..runtime import CAUTION
 from .common import add_model_args, model_from_args, overrides_from_args
 
 EXAMPLE = """examples:
-  lyacomp map examples/model.toml --x k:0.5:2.0:81 --y c:0.1:0.4:61 --out map.png --data map.csv
-  lyacomp map examples/model.toml --line k:0.5:2.0:201 --set c=0.2"""
+  lyacomp map examples/belt_friction_pad.toml --x c:1:3:41 --y mu_s:0.5:0.7:41 --out map.png
+  lyacomp map examples/belt_friction_pad.toml --line c3:0:5:101"""
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

@@ -14,8 +14,8 @@ from ..studies.verify import DEFAULT_GROWTH, OUTCOME_WORDS, check_by_simulation
 from .common import add_model_args, model_from_args, overrides_from_args
 
 EXAMPLE = """examples:
-  lyacomp verify examples/model.toml --set c=0.2 --plot check.png
-  lyacomp verify examples/model.toml --offset 0.01 --json
+  lyacomp verify examples/belt_friction_pad.toml --set c3=3 --plot check.png
+  lyacomp verify lyacomp/scenarios/tank_exciter.toml --offset 0.004 --json
 
 exit code: 0 when the simulation agrees with the prediction, 1 when it does not."""
 

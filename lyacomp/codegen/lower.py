@@ -77,7 +77,7 @@ def lower_block(
         return Block((), ())
     exprs = [expr.xreplace(subs) for _, expr in assignments]
     temps_sym = sp.numbered_symbols(temp_prefix)
-    replacements, reduced = sp.cse(exprs, symbols=temps_sym, optimizations="basic")
+    replacements, reduced = sp.cse(exprs, symbols=temps_sym)
     temporaries = tuple(Statement(str(sym), ccode(value)) for sym, value in replacements)
     outputs = tuple(
         Statement(target, ccode(value)) for (target, _), value in zip(assignments, reduced)
