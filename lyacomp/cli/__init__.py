@@ -48,3 +48,6 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("lyacomp: interrupted", file=sys.stderr)
         return 130
+    except BrokenPipeError:  # output piped into e.g. `head`, which stopped reading
+        sys.stderr.close()
+        return 141
