@@ -66,9 +66,12 @@ def test_extra_critical_eigenvalue():
 
 
 def test_no_oscillatory_pair():
-    # Real eigenvalues -1 and -2 at the start, nothing complex to follow.
+    # Real eigenvalues -1 ... -4 at the start, nothing complex to follow (four states: the
+    # augmented system starts from an eigenpair; two and three states need none).
     ev = _compile(
-        {"x": "-x + mu*y + x**3", "y": "-2*y", "z": "-3*z"}, {"mu": 0.0}, states=("x", "y", "z")
+        {"x": "-x + mu*y + x**3", "y": "-2*y", "z": "-3*z", "w": "-4*w"},
+        {"mu": 0.0},
+        states=("x", "y", "z", "w"),
     )
     assert ev().status == "no_oscillatory_pair"
 

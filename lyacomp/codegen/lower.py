@@ -64,7 +64,7 @@ class Lowered:
     b_form: tuple[Accumulation, ...]
     c_form: tuple[Accumulation, ...]
     hess_dir: tuple[Accumulation, ...]
-    trace_grad: tuple[Accumulation, ...]
+    chain: tuple[Accumulation, ...]
     critical_value: Block | None
     equilibrium: Block | None
 
@@ -127,13 +127,11 @@ def lower(der: Derivatives) -> Lowered:
         # H(w)_ij = sum_l F_ijl w_l: entry (j, l) feeds column j with w_l and column l with w_j.
         for a, b in orders:
             hess_dir.append(Accumulation(f"h[{i * n + a}]", f"d2[{k}]", (f"w[{b}]",)))
-    # d(trace A)/dx_j = sum_i d2F_i/dx_i dx_j: the entries whose row index is a column index.
-    trace_grad = []
+    # d h(A)/dx_b = sum_ia dh/dA_ia d2F_i/dx_a dx_b, from the stored (sorted) entries.
+    chain = []
     for k, (i, j1, j2) in enumerate(second_keys):
-        if j1 == i:
-            trace_grad.append(Accumulation(f"grad[{j2}]", f"d2[{k}]", ()))
-        if j2 == i and j1 != j2:
-            trace_grad.append(Accumulation(f"grad[{j1}]", f"d2[{k}]", ()))
+        for a, b in _distinct_orders((j1, j2)):
+            chain.append(Accumulation(f"grad[{b}]", f"d2[{k}]", (f"dh[{i * n + a}]",)))
     c_form = []
     for k, (i, j1, j2, j3) in enumerate(third_keys):
         orders = _distinct_orders((j1, j2, j3))
@@ -165,7 +163,7 @@ def lower(der: Derivatives) -> Lowered:
         b_form=tuple(b_form),
         c_form=tuple(c_form),
         hess_dir=tuple(hess_dir),
-        trace_grad=tuple(trace_grad),
+        chain=tuple(chain),
         critical_value=crit,
         equilibrium=equilibrium,
     )

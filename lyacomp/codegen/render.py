@@ -91,10 +91,13 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         "b_form": lowered.b_form,
         "c_form": lowered.c_form,
         "hess_dir": lowered.hess_dir,
-        "trace_grad": lowered.trace_grad,
+        "chain": lowered.chain,
         "critical_value": lowered.critical_value,
         "equilibrium": lowered.equilibrium,
         "solve_mu": lowered.bif_index >= 0 and lowered.critical_value is None,
+        # n <= 3: the Hopf point solves a reduced system (trace or Routh-Hurwitz) and the
+        # spectrum follows in closed form, so no eigenvalue routine is needed.
+        "reduced": lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 3,
     }
     source = env.get_template("model.c.j2")
     return CSources(
