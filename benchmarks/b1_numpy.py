@@ -14,8 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 import sympy
-
-from derive import HopfSymbols
+from symbolic import HopfSymbols
 
 NEWTON_MAX_STEPS = 40
 NEWTON_TOL = 1e-13

@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 import scipy.optimize
 import sympy
+from symbolic import HopfSymbols
 
-from derive import HopfSymbols
 
 class LoopHopf:
     """B2 evaluator: ``solve(params)`` loops over the rows of ``params``."""

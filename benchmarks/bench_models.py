@@ -6,11 +6,10 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-
 from b1_numpy import VectorizedHopf
 from b2_loop import LoopHopf
-from derive import derive
 from ring import ring_toml
+from symbolic import derive
 
 MODEL_DIR = Path(__file__).with_name("models")
 FILES = {
