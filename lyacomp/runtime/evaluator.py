@@ -82,6 +82,8 @@ class Evaluator:
         self._options = self.ffi.new(f"{PREFIX}_options *")
         for name, value in asdict(tolerances).items():
             setattr(self._options, name, value)
+        self._params_type = self.ffi.typeof(f"double[{max(len(self.parameters), 1)}]")
+        self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         # Solve once at nominal values; later calls start Newton there (they fall back to
@@ -123,18 +125,20 @@ class Evaluator:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``."""
         if params:
             values = {**params, **values}
-        p = list(self._nominal)
-        index = self._index
-        for name, value in values.items():
-            i = index.get(name)
-            if i is None:
-                raise self._unknown(values)
+        ffi = self.ffi
+        p = ffi.new(self._params_type, self._nominal)
+        if values:
+            index = self._index
             try:
-                p[i] = float(value)
-            except (TypeError, ValueError):
-                raise EvaluationError(f"parameter {name} must be a number, got {value!r}") from None
-        res = self.ffi.new(f"{PREFIX}_result *")
-        start = self.ffi.NULL if self.bifurcation in values else self._start
+                for name, value in values.items():
+                    p[index[name]] = value  # cffi converts numbers and refuses anything else
+            except KeyError:
+                raise self._unknown(values) from None
+            except TypeError:
+                bad = {k: v for k, v in values.items() if not isinstance(v, numbers.Real)}
+                raise EvaluationError(f"each parameter must be a number; got {bad}") from None
+        res = ffi.new(self._result_type)
+        start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
         return HopfResult(res[0], self.states, self.bifurcation)
 
