@@ -105,6 +105,15 @@ def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[st
     compile_flags = list(BASE_FLAGS)
     shared = _shared_flags()
     test_src = "int lyacomp_probe(void) { return 0; }\n"
+    omp_src = (
+        "#include <omp.h>\nint lyacomp_probe(void) { int s = 0;\n"
+        "#pragma omp parallel for reduction(+:s)\n"
+        "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n"
+    )
+    wanted = (["-march=native"] if config.native else []) + (["-fopenmp"] if config.openmp else [])
+    src = omp_src if config.openmp else test_src
+    if wanted and _probe(command, [*compile_flags, *wanted, *shared], src):
+        return compile_flags + wanted, config.openmp  # the usual case: one compiler run
     if not _probe(command, [*compile_flags, *shared], test_src):
         raise CompilerNotFoundError(
             f"the C compiler {command[0]} cannot build a shared library "
@@ -114,11 +123,6 @@ def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[st
         compile_flags.append("-march=native")
     openmp = False
     if config.openmp:
-        omp_src = (
-            "#include <omp.h>\nint lyacomp_probe(void) { int s = 0;\n"
-            "#pragma omp parallel for reduction(+:s)\n"
-            "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n"
-        )
         openmp = _probe(command, [*compile_flags, "-fopenmp", *shared], omp_src)
     if openmp:
         compile_flags.append("-fopenmp")
