@@ -55,9 +55,8 @@ class Lowered:
     n_params: int
     bif_index: int
     f_jac: Block
-    rhs: Block
-    mu_terms: Block
-    second: Block
+    linear: Block | None
+    curvature: Block
     third: Block
     n_second: int
     n_third: int
@@ -102,17 +101,21 @@ def lower(der: Derivatives) -> Lowered:
 
     rhs_assign = [(f"f[{i}]", e) for i, e in enumerate(model.rhs)]
     jac_assign = [(f"jac[{i * n + j}]", e) for (i, j), e in sorted(der.jacobian.items())]
-    f_jac = lower_block(rhs_assign + jac_assign, subs, "t")
-    rhs = lower_block(rhs_assign, subs, "t")
     mu_assign = [(f"f_mu[{i}]", e) for i, e in sorted(der.f_mu.items())]
     mu_assign += [(f"j_mu[{i * n + j}]", e) for (i, j), e in sorted(der.j_mu.items())]
-    mu_terms = lower_block(mu_assign, subs, "t")
-
     second_keys = sorted(der.second)
     third_keys = sorted(der.third)
-    second = lower_block(
-        [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)], subs, "t"
+    second_assign = [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)]
+    # One CSE pass per set of quantities needed together, so that expensive functions
+    # (exp, tanh, ...) shared by F and its derivatives are evaluated once.
+    f_jac = lower_block(rhs_assign + jac_assign, subs, "t")
+    solves_mu = model.bifurcation is not None and model.critical_value is None
+    linear = (
+        lower_block(rhs_assign + jac_assign + second_assign + mu_assign, subs, "t")
+        if solves_mu
+        else None
     )
+    curvature = lower_block(second_assign + mu_assign, subs, "t")
     third = lower_block(
         [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)], subs, "t"
     )
@@ -154,9 +157,8 @@ def lower(der: Derivatives) -> Lowered:
         n_params=len(model.parameters),
         bif_index=bif_index,
         f_jac=f_jac,
-        rhs=rhs,
-        mu_terms=mu_terms,
-        second=second,
+        linear=linear,
+        curvature=curvature,
         third=third,
         n_second=len(second_keys),
         n_third=len(third_keys),
