@@ -126,17 +126,19 @@ class Evaluator:
         if params:
             values = {**params, **values}
         ffi = self.ffi
-        p = ffi.new(self._params_type, self._nominal)
+        row = self._nominal.copy()
         if values:
             index = self._index
             try:
                 for name, value in values.items():
-                    p[index[name]] = value  # cffi converts numbers and refuses anything else
+                    row[index[name]] = value
             except KeyError:
                 raise self._unknown(values) from None
-            except TypeError:
-                bad = {k: v for k, v in values.items() if not isinstance(v, numbers.Real)}
-                raise EvaluationError(f"each parameter must be a number; got {bad}") from None
+        try:
+            p = ffi.new(self._params_type, row)  # cffi converts numbers, refuses the rest
+        except TypeError:
+            bad = {k: v for k, v in values.items() if not isinstance(v, numbers.Real)}
+            raise EvaluationError(f"each parameter must be a number; got {bad}") from None
         res = ffi.new(self._result_type)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
