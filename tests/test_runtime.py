@@ -59,6 +59,9 @@ def test_batch_broadcasts_and_keeps_shape(normal_form):
     np.testing.assert_allclose(b.l1[ok], expected[ok], rtol=1e-12)
     assert (b.criticality[s < 0] == lyacomp.Criticality.SUPERCRITICAL).all()
     assert (b.criticality[s > 0] == lyacomp.Criticality.SUBCRITICAL).all()
+    np.testing.assert_array_equal(b.subcritical, s > 0)
+    np.testing.assert_array_equal(b.supercritical, s < 0)
+    assert b.criticality_counts() == {"supercritical": 6, "subcritical": 6}
 
 
 def test_batch_matches_scalar_calls_and_thread_counts(normal_form):
