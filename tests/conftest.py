@@ -33,3 +33,21 @@ def pytest_unconfigure(config: pytest.Config) -> None:
 @pytest.fixture(scope="session")
 def examples_dir() -> Path:
     return EXAMPLES
+
+
+@pytest.fixture(scope="session")
+def documented_keys() -> set[str]:
+    """The keys README promises for `lyacomp eval --json` and HopfResult.to_dict()."""
+    return {
+        "status",
+        "l1",
+        "omega",
+        "critical_value",
+        "bifurcation_parameter",
+        "equilibrium",
+        "transversality",
+        "amplitude",
+        "cycle_side",
+        "period",
+        "criticality",
+    }
