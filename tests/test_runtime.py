@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 import pickle
 
@@ -107,3 +108,34 @@ def test_evaluator_pickles(normal_form):
     assert clone(s=0.6).l1 == normal_form(s=0.6).l1
     assert clone.tolerances.degenerate_atol == 0.5
     assert clone(s=0.2).criticality == "degenerate"
+
+
+def test_state_guesses_choose_among_equilibria(tmp_path, capsys):
+    # x' = y, y' = x - x^3 + (mu - x) y: equilibria x = 0, +-1. At x = +-1, trace A = mu - x
+    # and det A = 2 > 0: Hopf points at mu = +1 and mu = -1; at x = 0, det A = -1 < 0: the
+    # trace condition gives a neutral saddle (common practice, no source).
+    model = lyacomp.Model(
+        name="two wells",
+        states={"x": 0.9, "y": 0.0},
+        parameters={"mu": 0.8},
+        equations={"x": "y", "y": "x - x**3 + (mu - x)*y"},
+        bifurcation="mu",
+    )
+    ev = lyacomp.compile(model)
+    assert ev().critical_value == pytest.approx(1.0, abs=1e-12)
+    left = ev.with_guess(x=-0.9)
+    assert left.state_guess == {"x": -0.9, "y": 0.0}
+    assert left(mu=-0.8).critical_value == pytest.approx(-1.0, abs=1e-12)
+    assert ev.with_guess(x=0.0)(mu=0.1).status == "neutral_saddle"
+    assert pickle.loads(pickle.dumps(left)).state_guess == left.state_guess
+    with pytest.raises(EvaluationError, match="unknown state"):
+        ev.with_guess(z=1.0)
+    path = tmp_path / "wells.toml"
+    path.write_text(
+        'name = "two wells"\n[states]\nx = 0.9\ny = 0.0\n[parameters]\nmu = 0.8\n'
+        '[equations]\nx = "y"\ny = "x - x**3 + (mu - x)*y"\n[bifurcation]\nparameter = "mu"\n'
+    )
+    from lyacomp.cli import main
+
+    assert main(["eval", str(path), "--guess", "x=-0.9", "--set", "mu=-0.8", "--json"]) == 0
+    assert json.loads(capsys.readouterr().out)["critical_value"] == pytest.approx(-1.0)

@@ -8,7 +8,13 @@ import sys
 
 from ..pipeline import compile_model
 from ..runtime import CAUTION, HopfResult
-from .common import add_model_args, model_from_args, overrides_from_args
+from .common import (
+    add_guess_args,
+    add_model_args,
+    guesses_from_args,
+    model_from_args,
+    overrides_from_args,
+)
 
 EXAMPLE = "example:\n  lyacomp eval examples/brake_pad_squeal.toml --set mu_s=0.45 --json"
 
@@ -23,6 +29,7 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
     add_model_args(parser)
+    add_guess_args(parser)
     parser.add_argument("--json", action="store_true", help="print one JSON object")
     parser.add_argument(
         "--degenerate-tol",
@@ -74,7 +81,10 @@ def report(result: HopfResult, model_name: str) -> str:
 def run(args: argparse.Namespace) -> int:
     model = model_from_args(args)
     values = overrides_from_args(args, model)
+    guesses = guesses_from_args(args, model)
     ev = compile_model(model)
+    if guesses:
+        ev = ev.with_guess(**guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
     result = ev(**values)

@@ -65,6 +65,7 @@ class Evaluator:
         key: str,
         tolerances: Tolerances,
         build_config: Any = None,
+        state_guess: Mapping[str, float] | None = None,
     ):
         self.model = model
         self.key = key
@@ -78,7 +79,19 @@ class Evaluator:
         self.bifurcation: str | None = model.bifurcation
         self._index = {name: i for i, name in enumerate(self.parameters)}
         self._nominal = [float(v) for v in model.nominal.values()]
-        self._guess = self.ffi.new("double[]", [float(v) for v in model.states.values()])
+        guess = dict(model.state_guess)
+        unknown = set(state_guess or {}) - set(guess)
+        if unknown:
+            raise EvaluationError(
+                f"unknown state(s) {sorted(unknown)}; this model has {list(model.state_names)}"
+            )
+        for name, value in (state_guess or {}).items():
+            value = float(value)
+            if not math.isfinite(value):
+                raise EvaluationError(f"starting guess for {name} must be finite, got {value}")
+            guess[name] = value
+        self.state_guess: dict[str, float] = guess
+        self._guess = self.ffi.new("double[]", list(guess.values()))
         self._options = self.ffi.new(f"{PREFIX}_options *")
         for name, value in asdict(tolerances).items():
             setattr(self._options, name, value)
@@ -106,6 +119,22 @@ class Evaluator:
             self.key,
             replace(self.tolerances, **changes),
             self._build_config,
+            self.state_guess,
+        )
+
+    def with_guess(self, **states: float) -> Evaluator:
+        """The same compiled model with other starting guesses for the equilibrium.
+
+        Where a model has several equilibria or Hopf points, the guesses choose which one
+        Newton finds.
+        """
+        return Evaluator(
+            self.model,
+            self._module,
+            self.key,
+            self.tolerances,
+            self._build_config,
+            {**self.state_guess, **states},
         )
 
     def __repr__(self) -> str:
@@ -231,10 +260,13 @@ class Evaluator:
 
     # -- pickling: re-load (or re-build) from the cache in the receiving process ------
     def __reduce__(self):
-        return (_restore, (self.model, self.tolerances, self._build_config))
+        return (_restore, (self.model, self.tolerances, self._build_config, self.state_guess))
 
 
-def _restore(model: Model, tolerances: Tolerances, build_config: Any) -> Evaluator:
+def _restore(
+    model: Model, tolerances: Tolerances, build_config: Any, state_guess: dict[str, float]
+) -> Evaluator:
     from ..pipeline import compile_model
 
-    return compile_model(model, config=build_config).with_tolerances(**asdict(tolerances))
+    ev = compile_model(model, config=build_config, tolerances=tolerances)
+    return ev.with_guess(**state_guess)
