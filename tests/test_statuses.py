@@ -99,3 +99,15 @@ def test_no_convergence_is_a_status():
 @pytest.mark.parametrize("status", list(Status))
 def test_every_status_has_an_explanation(status):
     assert len(status.explanation) > 20
+
+
+def test_hopf_point_found_when_no_equilibrium_exists_at_the_guess():
+    # x' = y, y' = mu - x^2 + (nu - x) y: equilibria x = +-sqrt(mu) exist only for mu > 0;
+    # trace A = nu - x vanishes at x = nu, where det A = 2 x > 0: a Hopf point at
+    # (x, mu) = (nu, nu^2) (common practice, no source). From mu = -0.5 there is no
+    # equilibrium to start from; solving F = 0 and trace A = 0 together still finds it.
+    ev = _compile({"x": "y", "y": "mu - x**2 + (nu - x)*y"}, {"mu": 1.0, "nu": 1.0})
+    r = ev.with_guess(x=0.8)(mu=-0.5)
+    assert r.status == "ok"
+    assert r.critical_value == pytest.approx(1.0, rel=1e-12)
+    assert r.equilibrium["x"] == pytest.approx(1.0, rel=1e-12)
