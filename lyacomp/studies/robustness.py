@@ -264,8 +264,9 @@ class RobustnessResult:
         if self.fixed:
             lines.append("  fixed: " + ", ".join(f"{k}={v:g}" for k, v in self.fixed.items()))
         lines.append(
-            f"Hard (subcritical) onset: {self.probability_subcritical:.6g} of {self.ok} ok samples"
-            f" ({pct} Wilson interval {lo:.6g} .. {hi:.6g})"
+            f"Hard (subcritical) onset: probability {self.probability_subcritical:.6g}"
+            f" ({self.subcritical} of {self.ok} ok samples; {pct} Wilson interval"
+            f" {lo:.6g} .. {hi:.6g})"
         )
         if self.degenerate:
             lines.append(f"  degenerate (l1 = 0 exactly): {self.degenerate}")
