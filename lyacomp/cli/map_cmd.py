@@ -12,7 +12,7 @@ from ..runtime import CAUTION
 from .common import add_model_args, model_from_args, overrides_from_args
 
 EXAMPLE = """examples:
-  lyacomp map examples/belt_friction_pad.toml --x c:1:3:41 --y mu_s:0.5:0.7:41 --out map.png
+  lyacomp map examples/belt_friction_pad.toml --x c3:0:3:31 --y v_s:0.4:0.6:21 --out map.png
   lyacomp map examples/belt_friction_pad.toml --line c3:0:5:101"""
 
 
