@@ -15,15 +15,10 @@ Latin hypercube sampling each chunk is a design of its own).
 
 from __future__ import annotations
 
-import csv
 import math
-import os
-import shutil
 import signal
 import sys
-import tempfile
 import threading
-import zipfile
 from collections.abc import Iterator, Mapping, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field
@@ -34,6 +29,7 @@ import numpy as np
 
 from lyacomp.errors import StudyError
 from lyacomp.status import Criticality, Status
+from lyacomp.studies.sample_store import open_store
 from lyacomp.studies.uncertainty import (
     METHODS,
     UncertaintySpec,
@@ -295,88 +291,6 @@ class RobustnessResult:
         return "\n".join(lines)
 
 
-class _CsvStore:
-    """Streams samples to CSV, one chunk at a time; the status is written by name."""
-
-    def __init__(self, path: Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]):
-        self.path, self.n_inputs, self.labels = path, n_inputs, labels
-        self.tmp = path.with_name(f".{path.name}.partial")
-        self.file = self.tmp.open("w", newline="")
-        self.writer = csv.writer(self.file)
-        self.writer.writerow([*columns[:n_inputs], "status", *columns[n_inputs:]])
-
-    def write(self, block: np.ndarray, status: np.ndarray) -> None:
-        text = [[repr(float(v)) for v in row] for row in block.tolist()]
-        names = [self.labels.get(int(c), f"status_{c}") for c in status.tolist()]
-        self.writer.writerows(
-            r[: self.n_inputs] + [s] + r[self.n_inputs :] for r, s in zip(text, names, strict=True)
-        )
-
-    def close(self) -> None:
-        self.file.close()
-        os.replace(self.tmp, self.path)
-
-    def abort(self) -> None:
-        self.file.close()
-        self.tmp.unlink(missing_ok=True)
-
-
-class _NpzStore:
-    """Streams each column to a raw file, then packs them into one .npz at the end."""
-
-    def __init__(self, path: Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]):
-        self.path, self.labels = path, labels
-        self.columns = [*columns, "status"]
-        self.dir = tempfile.TemporaryDirectory(prefix=".lyacomp-samples-", dir=path.parent)
-        folder = Path(self.dir.name)
-        self.files = [open(folder / f"{i}.raw", "wb") for i in range(len(self.columns))]
-        self.rows = 0
-
-    def write(self, block: np.ndarray, status: np.ndarray) -> None:
-        for j, f in enumerate(self.files[:-1]):
-            np.ascontiguousarray(block[:, j], dtype="<f8").tofile(f)
-        np.asarray(status, dtype="<i4").tofile(self.files[-1])
-        self.rows += len(status)
-
-    def close(self) -> None:
-        for f in self.files:
-            f.close()
-        tmp = self.path.with_name(f".{self.path.name}.partial")
-        with zipfile.ZipFile(tmp, "w", compression=zipfile.ZIP_STORED, allowZip64=True) as zf:
-            for j, name in enumerate(self.columns):
-                dtype = "<i4" if name == "status" else "<f8"
-                self._member(zf, name, dtype, Path(self.dir.name) / f"{j}.raw")
-            codes = max(self.labels) + 1
-            names = np.array([self.labels.get(i, f"status_{i}") for i in range(codes)])
-            with zf.open("status_labels.npy", "w") as out:
-                np.lib.format.write_array(out, names)
-        os.replace(tmp, self.path)
-        self.dir.cleanup()
-
-    def _member(self, zf: zipfile.ZipFile, name: str, dtype: str, raw: Path) -> None:
-        header = {"descr": dtype, "fortran_order": False, "shape": (self.rows,)}
-        with zf.open(f"{name}.npy", "w", force_zip64=True) as out, raw.open("rb") as src:
-            np.lib.format.write_array_header_2_0(out, header)
-            shutil.copyfileobj(src, out, 1 << 22)
-
-    def abort(self) -> None:
-        for f in self.files:
-            f.close()
-        self.dir.cleanup()
-
-
-def _open_store(
-    path: str | Path, columns: Sequence[str], n_inputs: int, labels: dict[int, str]
-) -> _CsvStore | _NpzStore:
-    path = Path(path)
-    kinds = {".csv": _CsvStore, ".npz": _NpzStore}
-    if path.suffix.lower() not in kinds:
-        raise StudyError(f"cannot save samples to '{path}': use a .csv or .npz file name")
-    if not path.parent.is_dir():
-        raise StudyError(f"cannot save samples to '{path}': folder '{path.parent}' does not exist")
-    return kinds[path.suffix.lower()](path, columns, n_inputs, labels)
-
-
 def _jsonable(x: float) -> float | None:
     return None if not math.isfinite(x) else float(x)
 
@@ -517,7 +431,7 @@ def run_robustness(
     reservoir = _Reservoir(min(keep, samples), len(columns))
     counts = np.zeros(max(labels) + 1, dtype=np.int64)
     done = subcritical = degenerate = 0
-    store = _open_store(save, columns, spec.dimension, labels) if save is not None else None
+    store = open_store(save, columns, spec.dimension, labels) if save is not None else None
     bar = _progress(samples, progress)
     stopped = False
     try:
