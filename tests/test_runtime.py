@@ -139,3 +139,20 @@ def test_state_guesses_choose_among_equilibria(tmp_path, capsys):
 
     assert main(["eval", str(path), "--guess", "x=-0.9", "--set", "mu=-0.8", "--json"]) == 0
     assert json.loads(capsys.readouterr().out)["critical_value"] == pytest.approx(-1.0)
+
+
+def _l1_in_worker(ev, s):
+    return ev(s=s).l1
+
+
+def test_evaluator_works_in_a_spawned_worker_process(normal_form):
+    # Studies send evaluators to worker processes; a fresh interpreter reloads the build
+    # from the cache (the test session's cache directory is inherited via the environment).
+    import concurrent.futures
+    import multiprocessing
+
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
+        assert pool.submit(_l1_in_worker, normal_form, 0.5).result(timeout=300) == pytest.approx(
+            normal_form(s=0.5).l1, rel=0, abs=0
+        )
