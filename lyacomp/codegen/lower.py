@@ -57,7 +57,6 @@ class Lowered:
     f_jac: Block
     linear: Block | None
     curvature: Block
-    third: Block
     n_second: int
     n_third: int
     b_form: tuple[Accumulation, ...]
@@ -115,10 +114,8 @@ def lower(der: Derivatives) -> Lowered:
         if solves_mu
         else None
     )
-    curvature = lower_block(second_assign + mu_assign, subs, "t")
-    third = lower_block(
-        [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)], subs, "t"
-    )
+    third_assign = [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)]
+    curvature = lower_block(second_assign + third_assign + mu_assign, subs, "t")
 
     b_form = []
     hess_dir = []
@@ -159,7 +156,6 @@ def lower(der: Derivatives) -> Lowered:
         f_jac=f_jac,
         linear=linear,
         curvature=curvature,
-        third=third,
         n_second=len(second_keys),
         n_third=len(third_keys),
         b_form=tuple(b_form),

@@ -85,7 +85,6 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         "f_jac": lowered.f_jac,
         "linear": lowered.linear,
         "curvature": lowered.curvature,
-        "third": lowered.third,
         "n_second": lowered.n_second,
         "n_third": lowered.n_third,
         "b_form": lowered.b_form,
