@@ -171,3 +171,17 @@ def test_every_template_variant_compiles_without_warnings(n, mode, tmp_path):
     ]
     build = subprocess.run(cmd, cwd=tmp_path, capture_output=True, text=True)
     assert build.returncode == 0, build.stderr
+
+
+def test_missing_optional_package_is_one_line_with_the_install_hint(
+    examples_dir, monkeypatch, capsys
+):
+    # As if scipy were not installed (None in sys.modules makes the import fail).
+    monkeypatch.setitem(sys.modules, "scipy.optimize", None)
+    code = main(["map", str(examples_dir / "belt_friction_pad.toml"), "--line", "c3:0:5:11"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert code == 2
+    assert err == [
+        "lyacomp: error: this command needs scipy, an optional part of lyacomp; "
+        "install it with: pip install 'lyacomp[studies]'"
+    ]

@@ -11,6 +11,9 @@ from .._version import __version__
 from ..errors import LyacompError
 from . import cache_cmd, demo_cmd, emit_cmd, eval_cmd, map_cmd, robustness_cmd, verify_cmd
 
+# Packages of the `studies` extra: the core runs without them.
+_OPTIONAL = ("scipy", "matplotlib", "tqdm")
+
 SUBCOMMANDS = [eval_cmd, robustness_cmd, map_cmd, verify_cmd, demo_cmd, emit_cmd, cache_cmd]
 
 
@@ -44,6 +47,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     except LyacompError as exc:
         message = str(exc).strip().replace("\n", " | ") if len(str(exc)) < 2000 else str(exc)
         print(f"lyacomp: error: {message}", file=sys.stderr)
+        return 2
+    except ModuleNotFoundError as exc:
+        root = (exc.name or "").split(".")[0]
+        if root not in _OPTIONAL:
+            raise
+        print(
+            f"lyacomp: error: this command needs {root}, an optional part of lyacomp; "
+            "install it with: pip install 'lyacomp[studies]'",
+            file=sys.stderr,
+        )
         return 2
     except KeyboardInterrupt:
         print("lyacomp: interrupted", file=sys.stderr)
