@@ -53,10 +53,8 @@ def read_entry(cache_dir: Path, key: str) -> dict[str, Any] | None:
     meta = entry_dir(cache_dir, key) / META_NAME
     try:
         return json.loads(meta.read_text(encoding="utf-8"))
-    except (FileNotFoundError, NotADirectoryError):
-        return None
     except (OSError, json.JSONDecodeError):
-        return None  # unreadable or torn: treat as absent and rebuild
+        return None  # absent, unreadable or torn: (re)build
 
 
 def _ensure_dir(path: Path) -> None:

@@ -87,12 +87,7 @@ class Model:
             raise ModelError(f"{self.source}: [{key}] must be a table of name = number")
         out = {}
         for name, value in table.items():
-            if not is_valid_name(name):
-                raise ModelError(
-                    f"{self.source}: [{key}] {name!r} is not a valid name (letters, "
-                    "digits and underscores, starting with a letter)"
-                )
-            out[name] = _as_float(value, f"{self.source}: [{key}] {name}")
+            out[name] = _as_float(value, f"{self.source}: [{key}] {name!r}")
         return out
 
     def _check_names(self) -> None:
@@ -114,7 +109,10 @@ class Model:
         ):
             for name in names:
                 if not is_valid_name(name):
-                    raise ModelError(f"{src}: [{table}] {name!r} is not a valid name")
+                    raise ModelError(
+                        f"{src}: [{table}] {name!r} is not a valid name (letters, digits "
+                        "and underscores, starting with a letter)"
+                    )
                 if name in seen:
                     raise ModelError(
                         f"{src}: {name!r} is declared in both [{seen[name]}] "
