@@ -8,6 +8,7 @@ import sys
 from pathlib import Path
 
 from ..errors import LyacompError
+from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..pipeline import generate
 from .common import add_model_args, model_from_args
 
@@ -15,7 +16,6 @@ EXAMPLE = (
     "example:\n  lyacomp emit examples/brake_pad_squeal.toml -o generated/\n"
     "  cc -O2 -fopenmp -c generated/brake_pad_squeal.c   # then link with -lm"
 )
-_C_NAME = re.compile(r"[A-Za-z][A-Za-z0-9_]{0,30}")
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -39,13 +39,16 @@ def register(subparsers: argparse._SubParsersAction) -> None:
 
 
 def file_stem(name: str) -> str:
-    """A file name made from the model name (letters, digits, underscores)."""
+    """A file name made from the model name that passes the name whitelist."""
     stem = re.sub(r"[^a-z0-9]+", "_", name.lower()).strip("_")
-    return stem or "model"
+    if not stem[:1].isalpha():
+        stem = "model_" + stem
+    stem = stem[:MAX_NAME_LENGTH].rstrip("_")
+    return stem if is_valid_name(stem) else "model"
 
 
 def run(args: argparse.Namespace) -> int:
-    if not _C_NAME.fullmatch(args.prefix):
+    if not is_valid_name(args.prefix) or len(args.prefix) > 31:
         raise LyacompError(
             f"--prefix {args.prefix!r}: use a letter then letters, digits or underscores "
             "(at most 31 characters)"

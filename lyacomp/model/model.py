@@ -13,7 +13,7 @@ from typing import Any
 import sympy as sp
 
 from ..errors import ModelError
-from .expr_parser import is_valid_name, parse_expression
+from .expr_parser import check_expression, is_valid_name, parse_expression, quote
 
 MAX_STATES = 100
 """Dense per-sample work arrays live on the (thread) stack; this keeps them small."""
@@ -152,13 +152,17 @@ class Model:
     # -- symbolic form ----------------------------------------------------------------
     def _parse(self, value: Any, symbols: Mapping[str, sp.Expr], where: str) -> sp.Expr:
         if isinstance(value, sp.Basic):
-            expr = sp.sympify(value)  # already a sympy object: no text is parsed here
+            expr = value  # already a sympy object: no text is parsed here
+            check_expression(expr, where)
             unknown = {str(s) for s in expr.free_symbols} - set(symbols)
             if unknown:
-                raise ModelError(f"{where}: unknown symbol(s) {sorted(unknown)}")
+                shown = ", ".join(quote(u) for u in sorted(unknown)[:5])
+                raise ModelError(f"{where}: unknown symbol(s) {shown}")
             # Map the caller's symbols (possibly with assumptions) onto ours.
-            return expr.xreplace({s: symbols[str(s)] for s in expr.free_symbols})
-        return parse_expression(value, symbols, where)
+            expr = expr.xreplace({s: symbols[str(s)] for s in expr.free_symbols})
+        else:
+            expr = parse_expression(value, symbols, where)
+        return check_expression(expr, where)
 
     def _build_symbolic(self) -> SymbolicModel:
         src = self.source
