@@ -7,6 +7,7 @@ from sympy.printing.c import C99CodePrinter
 from sympy.printing.precedence import PRECEDENCE
 
 from ..errors import CodegenError
+from ..model.expr_parser import quote
 
 # Integer powers up to this size are written as products, which is exact and much
 # faster than a libm call.
@@ -60,4 +61,9 @@ def ccode(expr: sp.Expr) -> str:
     try:
         return _PRINTER.doprint(expr)
     except Exception as exc:  # the strict printer raises plain ValueError/TypeError
-        raise CodegenError(f"cannot write {expr} as C: {exc}") from exc
+        # Formatting a huge expression (or its message) can fail again: keep it short.
+        try:
+            why = str(exc)
+        except Exception:
+            why = type(exc).__name__
+        raise CodegenError(f"cannot write an expression as C: {quote(why)}") from exc

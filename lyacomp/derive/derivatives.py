@@ -13,6 +13,7 @@ import sympy as sp
 
 from ..errors import DerivationError
 from ..model import SymbolicModel
+from ..model.expr_parser import quote
 
 Index2 = tuple[int, int]
 Index3 = tuple[int, int, int]
@@ -40,7 +41,9 @@ def _diff(expr: sp.Expr, var: sp.Symbol, what: str) -> sp.Expr:
     try:
         return sp.diff(expr, var)
     except Exception as exc:  # sympy raises many types on exotic input
-        raise DerivationError(f"cannot differentiate {what} with respect to {var}: {exc}") from exc
+        raise DerivationError(
+            f"cannot differentiate {what} with respect to {var}: {quote(str(exc))}"
+        ) from exc
 
 
 def derive(model: SymbolicModel) -> Derivatives:

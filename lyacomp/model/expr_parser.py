@@ -114,6 +114,12 @@ def quote(text: str, pos: int = 0) -> str:
     return ("..." if lo > 0 else "") + repr(piece) + ("..." if lo + _QUOTE < len(text) else "")
 
 
+def quote_name(name: object) -> str:
+    """A name for a message, cut to 60 characters."""
+    text = str(name)
+    return repr(text) if len(text) <= 60 else repr(text[:60]) + "..."
+
+
 def _short(expr: object) -> str:
     """A short text of a sympy expression that cannot fail on huge ones."""
     try:
@@ -314,21 +320,21 @@ class _Parser:
         if name == "pi":
             return sp.pi
         if name in _SMOOTH or name in _NON_SMOOTH:
-            raise self.fail(pos, f"{name!r} is a function; call it with parentheses")
+            raise self.fail(pos, f"{quote_name(name)} is a function; call it with parentheses")
         if name in _CONDITIONAL_WORDS or name == "lambda":
             raise self.fail(pos, self._unexpected("name", name))
         raise self.fail(
-            pos, f"unknown name {name!r} (declare it as a state, parameter or definition)"
+            pos, f"unknown name {quote_name(name)} (declare it as a state, parameter or definition)"
         )
 
     def call(self, name: str, pos: int) -> sp.Expr:
         if name in self.symbols:
-            raise self.fail(pos, f"{name!r} is a declared symbol, not a function")
+            raise self.fail(pos, f"{quote_name(name)} is a declared symbol, not a function")
         if name in _NON_SMOOTH:
             raise self.fail(pos, f"{name}() is not smooth: " + _SMOOTHNESS_NOTE)
         if name not in _SMOOTH:
             allowed = ", ".join(sorted(_SMOOTH))
-            raise self.fail(pos, f"unknown function {name!r}; allowed: {allowed}")
+            raise self.fail(pos, f"unknown function {quote_name(name)}; allowed: {allowed}")
         self.expect("(")
         self.nest(pos)
         args = []
@@ -406,7 +412,7 @@ def check_expression(expr: sp.Expr, where: str) -> sp.Expr:
             raise fail(f"{name}() is not smooth: " + _SMOOTHNESS_NOTE)
         if isinstance(node, sp.Function) and not isinstance(node, _SMOOTH_CLASSES):
             allowed = ", ".join(sorted(_SMOOTH))
-            raise fail(f"unknown function {name!r}; allowed: {allowed}")
+            raise fail(f"unknown function {quote_name(name)}; allowed: {allowed}")
         if isinstance(node, sp.Expr) and not node.free_symbols:
             if node.has(sp.zoo, sp.nan, sp.oo, -sp.oo):
                 raise fail(f"{_short(node)} is infinite or undefined")

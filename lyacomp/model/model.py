@@ -13,7 +13,14 @@ from typing import Any
 import sympy as sp
 
 from ..errors import ModelError
-from .expr_parser import check_expression, is_valid_name, parse_expression, quote
+from .expr_parser import (
+    MAX_NAME_LENGTH,
+    check_expression,
+    is_valid_name,
+    parse_expression,
+    quote,
+    quote_name,
+)
 
 MAX_STATES = 100
 """Dense per-sample work arrays live on the (thread) stack; this keeps them small."""
@@ -21,10 +28,10 @@ MAX_STATES = 100
 
 def _as_float(value: Any, where: str) -> float:
     if isinstance(value, bool) or not isinstance(value, (int, float)):
-        raise ModelError(f"{where}: expected a number, got {value!r}")
+        raise ModelError(f"{where}: expected a number, got {repr(value)[:60]}")
     value = float(value)
     if not math.isfinite(value):
-        raise ModelError(f"{where}: expected a finite number, got {value!r}")
+        raise ModelError(f"{where}: expected a finite number, got {repr(value)[:60]}")
     return value
 
 
@@ -87,7 +94,7 @@ class Model:
             raise ModelError(f"{self.source}: [{key}] must be a table of name = number")
         out = {}
         for name, value in table.items():
-            out[name] = _as_float(value, f"{self.source}: [{key}] {name!r}")
+            out[name] = _as_float(value, f"{self.source}: [{key}] {quote_name(name)}")
         return out
 
     def _check_names(self) -> None:
@@ -110,12 +117,13 @@ class Model:
             for name in names:
                 if not is_valid_name(name):
                     raise ModelError(
-                        f"{src}: [{table}] {name!r} is not a valid name (letters, digits "
-                        "and underscores, starting with a letter)"
+                        f"{src}: [{table}] {quote_name(name)} is not a valid name (letters, "
+                        f"digits and underscores, starting with a letter, at most "
+                        f"{MAX_NAME_LENGTH} characters)"
                     )
                 if name in seen:
                     raise ModelError(
-                        f"{src}: {name!r} is declared in both [{seen[name]}] "
+                        f"{src}: {quote_name(name)} is declared in both [{seen[name]}] "
                         f"and [{table}]; names must be unique"
                     )
                 seen[name] = table
@@ -129,13 +137,16 @@ class Model:
             raise ModelError(f"{src}: [equations] must be a table of state = expression")
         for state in self.states:
             if state not in self.equations:
-                raise ModelError(f"{src}: [equations] has no equation for state {state!r}")
+                raise ModelError(
+                    f"{src}: [equations] has no equation for state {quote_name(state)}"
+                )
         for key in self.equations:
             if key not in self.states:
-                raise ModelError(f"{src}: [equations] {key!r} is not a declared state")
+                raise ModelError(f"{src}: [equations] {quote_name(key)} is not a declared state")
         if self.bifurcation is not None and self.bifurcation not in self.parameters:
             raise ModelError(
-                f"{src}: [bifurcation] parameter {self.bifurcation!r} is not a declared parameter"
+                f"{src}: [bifurcation] parameter {quote_name(self.bifurcation)} "
+                "is not a declared parameter"
             )
         if self.bifurcation is None and (self.guess is not None or self.critical_value is not None):
             raise ModelError(f"{src}: [bifurcation] guess/critical_value need a 'parameter'")
@@ -144,10 +155,14 @@ class Model:
         if self.equilibrium is not None:
             for key in self.equilibrium:
                 if key not in self.states:
-                    raise ModelError(f"{src}: [equilibrium] {key!r} is not a declared state")
+                    raise ModelError(
+                        f"{src}: [equilibrium] {quote_name(key)} is not a declared state"
+                    )
             for state in self.states:
                 if state not in self.equilibrium:
-                    raise ModelError(f"{src}: [equilibrium] has no expression for {state!r}")
+                    raise ModelError(
+                        f"{src}: [equilibrium] has no expression for {quote_name(state)}"
+                    )
 
     # -- symbolic form ----------------------------------------------------------------
     def _parse(self, value: Any, symbols: Mapping[str, sp.Expr], where: str) -> sp.Expr:
