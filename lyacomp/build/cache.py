@@ -226,11 +226,17 @@ def install_entry(
     (build_dir / META_NAME).write_text(json.dumps(meta, indent=2, sort_keys=True), encoding="utf-8")
     target = entry_dir(cache_dir, key)
     _ensure_dir(target.parent)
-    _remove(target)  # a damaged or unfinished leftover
-    if keep_build:
-        shutil.copytree(build_dir, target)
-    else:
-        os.replace(build_dir, target)
+    for attempt in range(3):
+        _remove(target)  # a damaged or unfinished leftover
+        try:
+            if keep_build:
+                shutil.copytree(build_dir, target)
+            else:
+                os.replace(build_dir, target)
+            break
+        except OSError as exc:  # something else wrote the path in between: try again
+            if attempt == 2:
+                raise LyacompError(f"cannot install the build at {target}: {exc}") from None
     return Entry(meta, data)
 
 
