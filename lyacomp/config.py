@@ -9,7 +9,9 @@
 - LYACOMP_KEEP_BUILD: 1 keeps the temporary build directory for debugging (default 0).
 - LYACOMP_LOCK_TIMEOUT: seconds to wait for another process's build (default 600).
 
-Every setting that changes the generated binary is part of the cache key.
+Every setting that changes the generated binary is part of the cache key. A pickled
+evaluator is rebuilt with the receiver's cache directory, compiler, lock timeout and
+keep-build setting; the sender's extra flags, native and OpenMP choices travel with it.
 """
 
 from __future__ import annotations

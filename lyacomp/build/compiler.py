@@ -13,7 +13,7 @@ import sys
 import sysconfig
 import tempfile
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
 
@@ -37,6 +37,8 @@ class Toolchain:
     compile_flags: tuple[str, ...]
     link_flags: tuple[str, ...]
     openmp: bool
+    remembered: bool = field(default=False, compare=False)
+    """The optional flags came from a probe record in the cache (not probed now)."""
 
     def identity(self) -> str:
         """Everything about the toolchain that changes the binary (for the cache key)."""
@@ -133,10 +135,11 @@ def _shared_flags() -> list[str]:
     return ["-shared", "-undefined", "dynamic_lookup"] if sys.platform == "darwin" else ["-shared"]
 
 
-def _remembered_probe(
-    command: tuple[str, ...], version: str, config: BuildConfig
-) -> tuple[list[str], bool]:
-    """Probe results, remembered in the cache: probing costs a few compiler runs."""
+_OPTIONAL_FLAGS = ("-march=native", "-fopenmp")
+
+
+def _probe_record(command: tuple[str, ...], version: str, config: BuildConfig) -> Path:
+    """Where the probe results of this compiler and these settings are remembered."""
     path = shutil.which(command[0]) or command[0]
     try:
         stat = os.stat(path)
@@ -155,16 +158,46 @@ def _remembered_probe(
             sys.platform,
         ]
     )
-    record = (
+    return (
         config.cache_dir
         / "toolchains"
         / (hashlib.sha256(ident.encode()).hexdigest()[:32] + ".json")
     )
+
+
+def _valid_record(data: object, config: BuildConfig) -> tuple[list[str], bool] | None:
+    """The flags of a probe record if it is one a probe could have written, else None."""
+    if not isinstance(data, dict) or not isinstance(data.get("openmp"), bool):
+        return None
+    flags = data.get("compile_flags")
+    if not isinstance(flags, list) or tuple(flags[: len(BASE_FLAGS)]) != BASE_FLAGS:
+        return None
+    optional = flags[len(BASE_FLAGS) :]
+    allowed = [
+        flag
+        for flag, wanted in zip(_OPTIONAL_FLAGS, (config.native, config.openmp))
+        if wanted and flag in optional
+    ]
+    if optional != allowed or data["openmp"] != ("-fopenmp" in optional):
+        return None
+    return list(flags), data["openmp"]
+
+
+def _remembered_probe(
+    command: tuple[str, ...], version: str, config: BuildConfig
+) -> tuple[list[str], bool, bool]:
+    """Probe results, remembered in the cache: probing costs a few compiler runs.
+
+    Returns the flags, whether OpenMP works, and whether they came from the record.
+    A record that a probe could not have written (edited, damaged) is probed again.
+    """
+    record = _probe_record(command, version, config)
     try:
-        data = json.loads(record.read_text(encoding="utf-8"))
-        return list(data["compile_flags"]), bool(data["openmp"])
-    except (OSError, ValueError, KeyError, TypeError):
-        pass
+        found = _valid_record(json.loads(record.read_text(encoding="utf-8")), config)
+    except (OSError, UnicodeDecodeError, ValueError):
+        found = None
+    if found is not None:
+        return found[0], found[1], True
     flags, openmp = _probe_flags(command, config)
     try:
         record.parent.mkdir(parents=True, exist_ok=True)
@@ -173,7 +206,16 @@ def _remembered_probe(
         os.replace(tmp, record)
     except OSError:
         pass  # an unwritable cache only costs the probes next time
-    return flags, openmp
+    return flags, openmp, False
+
+
+def forget_probe(tc: Toolchain, config: BuildConfig) -> None:
+    """Drop the remembered probe of ``tc`` so that the next :func:`toolchain` probes again."""
+    try:
+        _probe_record(tc.command, tc.version, config).unlink()
+    except OSError:
+        pass  # already gone, or a read-only cache: the probe runs again anyway
+    toolchain.cache_clear()
 
 
 @lru_cache(maxsize=8)
@@ -188,10 +230,10 @@ def toolchain(config: BuildConfig) -> Toolchain:
         ) from None
     text = (out.stdout or out.stderr).strip()
     version = text.splitlines()[0] if text else "unknown"
-    compile_flags, openmp = _remembered_probe(command, version, config)
+    compile_flags, openmp, remembered = _remembered_probe(command, version, config)
     compile_flags.extend(config.extra_flags)
     link_flags = [*_shared_flags(), "-lm"] + (["-fopenmp"] if openmp else [])
-    return Toolchain(command, version, tuple(compile_flags), tuple(link_flags), openmp)
+    return Toolchain(command, version, tuple(compile_flags), tuple(link_flags), openmp, remembered)
 
 
 def python_include_dirs() -> list[str]:

@@ -7,7 +7,9 @@ import importlib.machinery
 import importlib.util
 import io
 import logging
+import shutil
 import time
+from collections.abc import Callable
 from pathlib import Path
 from types import ModuleType
 from typing import Any
@@ -16,6 +18,7 @@ import cffi
 
 from ..codegen import CSources
 from ..errors import BuildError
+from .cache import Entry
 from .compiler import Toolchain, compile_shared, python_include_dirs, shared_library_suffix
 
 log = logging.getLogger("lyacomp")
@@ -60,22 +63,28 @@ def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str)
 _LOADED: dict[str, ModuleType] = {}
 
 
-def load_extension(entry: Path, meta: dict[str, Any]) -> ModuleType:
-    """Import the compiled module of a cache entry (once per process)."""
-    name = meta["module"]
+def load_extension(entry: Entry, scratch: Callable[[], Path]) -> ModuleType:
+    """Import the compiled module of a checked cache entry (once per process).
+
+    The checked bytes are written to a private file in a new folder from ``scratch()``
+    and loaded from there, so a library changed on disk after its check is never mapped.
+    """
+    name = entry.meta["module"]
     if name in _LOADED:
         return _LOADED[name]
-    path = entry / meta["library"]
-    loader = importlib.machinery.ExtensionFileLoader(name, str(path))
-    spec = importlib.util.spec_from_file_location(name, str(path), loader=loader)
-    if spec is None:
-        raise BuildError(f"cannot load the compiled model {path}")
+    folder = scratch()
+    path = folder / entry.meta["library"]
     try:
+        path.write_bytes(entry.library)
+        loader = importlib.machinery.ExtensionFileLoader(name, str(path))
+        spec = importlib.util.spec_from_file_location(name, str(path), loader=loader)
+        if spec is None:
+            raise BuildError(f"cannot load the compiled model {name}")
         module = importlib.util.module_from_spec(spec)
         loader.exec_module(module)
-    except ImportError as exc:
-        raise BuildError(
-            f"cannot load the compiled model {path}: {exc}; delete {entry} to force a rebuild"
-        ) from exc
+    except (ImportError, OSError) as exc:
+        raise BuildError(f"cannot load the compiled model {name}: {exc}") from exc
+    finally:
+        shutil.rmtree(folder, ignore_errors=True)  # the mapping outlives the file
     _LOADED[name] = module
     return module

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import argparse
-import shutil
 
+from ..build import clear_cache
 from ..config import default_cache_dir
 
 EXAMPLE = "example:\n  lyacomp cache            # show location and size\n  lyacomp cache --clear"
@@ -18,15 +18,17 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         epilog=EXAMPLE,
         formatter_class=argparse.RawDescriptionHelpFormatter,
     )
-    parser.add_argument("--clear", action="store_true", help="delete every cached build")
+    parser.add_argument(
+        "--clear", action="store_true", help="delete the cached builds (only what lyacomp created)"
+    )
     parser.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     root = default_cache_dir()
     if args.clear:
-        shutil.rmtree(root, ignore_errors=True)
-        print(f"cleared {root}")
+        removed = clear_cache(root)
+        print(f"cleared {root}: {removed} build(s) removed")
         return 0
     entries = list(root.glob("??/*/meta.json")) if root.is_dir() else []
     size = sum(f.stat().st_size for f in root.rglob("*") if f.is_file()) if root.is_dir() else 0

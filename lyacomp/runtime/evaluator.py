@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import math
 import numbers
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, replace
 from types import ModuleType
 from typing import Any
 
 import numpy as np
 
-from ..errors import EvaluationError
+from ..errors import EvaluationError, InternalError
 from ..model import Model
 from .results import BatchResult, HopfResult
 
@@ -263,10 +263,19 @@ class Evaluator:
         return (_restore, (self.model, self.tolerances, self._build_config, self.state_guess))
 
 
+_REBUILD: Callable[..., Evaluator] | None = None
+
+
+def register_rebuild(rebuild: Callable[..., Evaluator]) -> None:
+    """Set how unpickled evaluators are rebuilt (the pipeline registers itself on import,
+    so this layer does not import the pipeline back)."""
+    global _REBUILD
+    _REBUILD = rebuild
+
+
 def _restore(
     model: Model, tolerances: Tolerances, build_config: Any, state_guess: dict[str, float]
 ) -> Evaluator:
-    from ..pipeline import compile_model
-
-    ev = compile_model(model, config=build_config, tolerances=tolerances)
-    return ev.with_guess(**state_guess)
+    if _REBUILD is None:  # importing lyacomp imports the pipeline, which registers it
+        raise InternalError("no rebuild hook registered; import lyacomp before unpickling")
+    return _REBUILD(model, tolerances, build_config, state_guess)
