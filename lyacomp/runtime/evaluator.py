@@ -40,8 +40,8 @@ def _describe(value: Any) -> str:
 def _real_scalar(value: Any, what: str) -> float:
     """``value`` as a float when it is a real number (bool, int, float, numpy real); else
     an EvaluationError naming ``what``."""
-    if type(value) is float:
-        return value
+    if isinstance(value, float):  # numpy float64 included
+        return float(value)
     if isinstance(value, np.ndarray | np.generic):
         array = np.asarray(value)
         if array.ndim != 0:
