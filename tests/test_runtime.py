@@ -77,13 +77,13 @@ def test_batch_empty_and_scalar_only(normal_form):
 def test_bad_arguments_raise_clear_errors(normal_form):
     with pytest.raises(EvaluationError, match=r"unknown parameter\(s\) \['nu'\]"):
         normal_form(nu=1.0)
-    with pytest.raises(EvaluationError, match="must be a number"):
+    with pytest.raises(EvaluationError, match="parameter s must be a real number"):
         normal_form(s="big")
     with pytest.raises(EvaluationError, match="do not broadcast"):
         normal_form.batch({"s": np.zeros(3), "w": np.ones(4)})
     with pytest.raises(EvaluationError, match="threads"):
         normal_form.batch({"s": 1.0}, threads=0)
-    with pytest.raises(EvaluationError, match="cannot read"):
+    with pytest.raises(EvaluationError, match="parameter s must hold real numbers"):
         normal_form.batch({"s": ["a", "b"]})
     with pytest.raises(EvaluationError, match="degenerate_rtol"):
         normal_form.with_tolerances(degenerate_rtol=-1.0)

@@ -84,10 +84,10 @@ def run(args: argparse.Namespace) -> int:
     guesses = guesses_from_args(args, model)
     ev = compile_model(model)
     if guesses:
-        ev = ev.with_guess(**guesses)
+        ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(**values)
+    result = ev(values)
     if args.json:
         print(json.dumps(result.to_dict(), indent=2))
     else:

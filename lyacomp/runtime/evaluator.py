@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import decimal
 import math
 import numbers
 from collections.abc import Callable, Mapping
@@ -16,6 +17,94 @@ from ..model import Model
 from .results import BatchResult, HopfResult
 
 PREFIX = "lyc"
+
+MAX_THREADS = 4096
+"""Largest thread count a batch call takes (the C driver takes an int; more is a typo)."""
+
+MAX_ITER = 100_000
+"""Largest Newton iteration count per stage."""
+
+_REAL_KINDS = "biuf"  # numpy dtype kinds of real numbers: bool, signed, unsigned, float
+
+
+def _describe(value: Any) -> str:
+    """A short description of a refused value (never the whole of a large input)."""
+    if isinstance(value, int) and not isinstance(value, bool) and abs(value) >= 10**30:
+        return f"an integer of about 10^{int(value.bit_length() * math.log10(2))}"
+    if isinstance(value, np.ndarray):
+        return f"an array of dtype {value.dtype}"
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def _real_scalar(value: Any, what: str) -> float:
+    """``value`` as a float when it is a real number (bool, int, float, numpy real); else
+    an EvaluationError naming ``what``."""
+    if isinstance(value, float):  # numpy float64 included
+        return float(value)
+    if isinstance(value, np.ndarray | np.generic):
+        array = np.asarray(value)
+        if array.ndim != 0:
+            raise EvaluationError(
+                f"{what} must be one number, got an array of shape {array.shape} "
+                "(use batch for arrays)"
+            )
+        return float(_real_array(array, what))
+    if isinstance(value, numbers.Real | decimal.Decimal):
+        try:
+            return float(value)
+        except OverflowError:
+            raise EvaluationError(
+                f"{what} is {_describe(value)}, beyond the range of a double (about 1.8e308)"
+            ) from None
+    raise EvaluationError(f"{what} must be a real number, got {_describe(value)}")
+
+
+def _real_array(raw: Any, what: str) -> np.ndarray:
+    """``raw`` (a number, a sequence of numbers or a real numpy array) as float64; other
+    inputs (complex, strings, dates, objects, masked arrays) give an EvaluationError
+    naming ``what``."""
+    if isinstance(raw, np.ma.MaskedArray):
+        raise EvaluationError(
+            f"{what} is a masked array; fill the masked entries first "
+            "(for example a.filled(np.nan))"
+        )
+    if not isinstance(raw, np.ndarray | np.generic):
+        if isinstance(raw, str | bytes) or not hasattr(raw, "__len__"):
+            return np.asarray(_real_scalar(raw, what))
+        try:
+            array = np.asarray(raw)
+        except (TypeError, ValueError):
+            raise EvaluationError(f"{what}: cannot read {_describe(raw)} as an array") from None
+        if array.dtype.kind == "O":
+            # Python numbers numpy keeps as objects (ints beyond 64 bits, None, mixtures)
+            flat = [_real_scalar(v, what) for v in array.reshape(-1)]
+            return np.array(flat, dtype=np.float64).reshape(array.shape)
+    else:
+        array = np.asarray(raw)
+    if array.dtype.kind not in _REAL_KINDS:
+        raise EvaluationError(
+            f"{what} must hold real numbers, got dtype {array.dtype} "
+            "(complex, text, dates and objects are refused)"
+        )
+    out = array.astype(np.float64, copy=False)
+    if array.dtype.kind == "f" and array.dtype.itemsize > 8:
+        with np.errstate(over="ignore"):
+            out = array.astype(np.float64)
+        if (np.isinf(out) & np.isfinite(array)).any():
+            raise EvaluationError(f"{what} holds values beyond the range of a double")
+    return out
+
+
+def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
+    """User names from the positional mapping and the keywords (keywords win)."""
+    if mapping is None:
+        return keywords
+    if not isinstance(mapping, Mapping):
+        raise EvaluationError(
+            f"{what} are given as a mapping of name -> value, got {_describe(mapping)}"
+        )
+    return {**mapping, **keywords}
 
 
 @dataclass(frozen=True)
@@ -37,17 +126,19 @@ class Tolerances:
 
     def __post_init__(self) -> None:
         for name, value in asdict(self).items():
-            if (
-                isinstance(value, bool)
-                or not isinstance(value, numbers.Real)
-                or not math.isfinite(value)
-                or value < 0
-            ):
+            ok = not isinstance(value, bool) and isinstance(value, numbers.Real)
+            try:
+                ok = ok and math.isfinite(value) and value >= 0
+            except OverflowError:  # an int beyond float range
+                ok = False
+            if not ok:
                 raise EvaluationError(
-                    f"tolerance {name} must be a finite number >= 0, got {value!r}"
+                    f"tolerance {name} must be a finite number >= 0, got {_describe(value)}"
                 )
-        if int(self.max_iter) != self.max_iter or self.max_iter < 1:
-            raise EvaluationError(f"max_iter must be a positive integer, got {self.max_iter!r}")
+        if int(self.max_iter) != self.max_iter or not 1 <= self.max_iter <= MAX_ITER:
+            raise EvaluationError(
+                f"max_iter must be an integer from 1 to {MAX_ITER}, got {_describe(self.max_iter)}"
+            )
 
 
 class Evaluator:
@@ -86,7 +177,7 @@ class Evaluator:
                 f"unknown state(s) {sorted(unknown)}; this model has {list(model.state_names)}"
             )
         for name, value in (state_guess or {}).items():
-            value = float(value)
+            value = _real_scalar(value, f"starting guess for {name}")
             if not math.isfinite(value):
                 raise EvaluationError(f"starting guess for {name} must be finite, got {value}")
             guess[name] = value
@@ -94,7 +185,7 @@ class Evaluator:
         self._guess = self.ffi.new("double[]", list(guess.values()))
         self._options = self.ffi.new(f"{PREFIX}_options *")
         for name, value in asdict(tolerances).items():
-            setattr(self._options, name, value)
+            setattr(self._options, name, int(value) if name == "max_iter" else float(value))
         self._params_type = self.ffi.typeof(f"double[{max(len(self.parameters), 1)}]")
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
@@ -111,8 +202,13 @@ class Evaluator:
     def nominal(self) -> dict[str, float]:
         return dict(zip(self.parameters, self._nominal))
 
-    def with_tolerances(self, **changes: Any) -> Evaluator:
-        """The same compiled model with other numerical settings."""
+    def with_tolerances(self, /, **changes: Any) -> Evaluator:
+        """The same compiled model with other numerical settings (names of Tolerances)."""
+        unknown = sorted(set(changes) - set(asdict(self.tolerances)))
+        if unknown:
+            raise EvaluationError(
+                f"unknown tolerance(s) {unknown}; the settings are {list(asdict(self.tolerances))}"
+            )
         return Evaluator(
             self.model,
             self._module,
@@ -122,12 +218,16 @@ class Evaluator:
             self.state_guess,
         )
 
-    def with_guess(self, **states: float) -> Evaluator:
-        """The same compiled model with other starting guesses for the equilibrium.
+    def with_guess(
+        self, guesses: Mapping[str, float] | None = None, /, **states: float
+    ) -> Evaluator:
+        """The same compiled model with other starting guesses for the equilibrium:
+        ``ev.with_guess(x=0.5)`` or ``ev.with_guess({"x": 0.5})``.
 
         Where a model has several equilibria or Hopf points, the guesses choose which one
         Newton finds.
         """
+        states = _names(guesses, states, "starting guesses")
         return Evaluator(
             self.model,
             self._module,
@@ -151,23 +251,21 @@ class Evaluator:
         )
 
     def __call__(self, params: Mapping[str, float] | None = None, /, **values: float) -> HopfResult:
-        """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``."""
-        if params:
-            values = {**params, **values}
+        """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
+
+        Every value must be one real number (see :meth:`batch` for the rules).
+        """
+        values = _names(params, values, "parameters")
         ffi = self.ffi
         row = self._nominal.copy()
         if values:
             index = self._index
             try:
                 for name, value in values.items():
-                    row[index[name]] = value
+                    row[index[name]] = _real_scalar(value, f"parameter {name}")
             except KeyError:
                 raise self._unknown(values) from None
-        try:
-            p = ffi.new(self._params_type, row)  # cffi converts numbers, refuses the rest
-        except TypeError:
-            bad = {k: v for k, v in values.items() if not isinstance(v, numbers.Real)}
-            raise EvaluationError(f"each parameter must be a number; got {bad}") from None
+        p = ffi.new(self._params_type, row)
         res = ffi.new(self._result_type)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
@@ -175,27 +273,32 @@ class Evaluator:
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
-        self, params: Mapping[str, Any] | None = None, threads: int | None = None, **values: Any
+        self,
+        params: Mapping[str, Any] | None = None,
+        /,
+        *,
+        threads: int | None = None,
+        **values: Any,
     ) -> BatchResult:
-        """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released).
+        """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
+        ``ev.batch({"k": array})`` or ``ev.batch(k=array)``.
 
         Arrays broadcast against each other and against scalars; the result arrays
-        have the broadcast shape. ``threads=None`` uses all cores.
+        have the broadcast shape. Values must be real numbers: Python bool, int and float,
+        numpy arrays and scalars of real dtypes, sequences of these; complex, text, dates,
+        object and masked arrays are refused. ``threads=None`` uses all cores. A keyword
+        named ``threads`` is always the option: a parameter of that name goes in the mapping.
         """
-        values = {**(params or {}), **values}
+        values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
-        if threads is not None and (
-            isinstance(threads, bool) or not isinstance(threads, int) or threads < 1
-        ):
-            raise EvaluationError(f"threads must be a positive integer or None, got {threads!r}")
-        arrays = []
-        for name, nominal in zip(self.parameters, self._nominal):
-            raw = values.get(name, nominal)
-            try:
-                arrays.append(np.asarray(raw, dtype=np.float64))
-            except (TypeError, ValueError):
-                raise EvaluationError(f"parameter {name}: cannot read {raw!r} as numbers") from None
+        threads = self._threads(threads)
+        arrays = [
+            _real_array(values[name], f"parameter {name}")
+            if name in values
+            else np.asarray(nominal)
+            for name, nominal in zip(self.parameters, self._nominal)
+        ]
         try:
             shape = np.broadcast_shapes(*(a.shape for a in arrays))
         except ValueError:
@@ -251,12 +354,32 @@ class Evaluator:
                 self._guess,
                 start,
                 self._options,
-                threads or 0,
+                threads,
                 c_out,
             )
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
         return BatchResult(states=self.states, **vector, **matrix)
+
+    def _threads(self, threads: Any) -> int:
+        """The thread count for C (0: all cores), or an EvaluationError."""
+        if threads is None:
+            return 0
+        hint = (
+            "; a parameter named 'threads' goes in the mapping: ev.batch({'threads': ...})"
+            if "threads" in self._index
+            else ""
+        )
+        if isinstance(threads, bool | np.bool_) or not isinstance(threads, numbers.Integral):
+            raise EvaluationError(
+                f"threads must be a positive integer or None, got {_describe(threads)}{hint}"
+            )
+        if not 1 <= int(threads) <= MAX_THREADS:
+            raise EvaluationError(
+                f"threads must be from 1 to {MAX_THREADS} (or None for all cores), "
+                f"got {_describe(int(threads))}{hint}"
+            )
+        return int(threads)
 
     # -- pickling: re-load (or re-build) from the cache in the receiving process ------
     def __reduce__(self):

@@ -261,7 +261,7 @@ def _l1_along(ev: Any, base: Mapping[str, float], name: str, guess: float):
     starts from ``guess`` (the critical value at a bracket end keeps Newton on that branch)."""
 
     def l1(value: float) -> float:
-        res = ev(**{**base, name: value, ev.bifurcation: guess})
+        res = ev({**base, name: value, ev.bifurcation: guess})
         if not res.ok:
             raise _NoHopfHere
         return float(res.l1)
@@ -391,7 +391,7 @@ def find_switches(
         if root is None:
             switches.append(Switch(name, math.nan, math.nan, math.nan, before, after, bracket))
             continue
-        res = ev(**{**fixed, name: root, ev.bifurcation: float(crit[i])})
+        res = ev({**fixed, name: root, ev.bifurcation: float(crit[i])})
         crit_value, omega = (res.critical_value, res.omega) if res.ok else (math.nan, math.nan)
         switches.append(Switch(name, root, float(crit_value), float(omega), before, after, bracket))
     return switches

@@ -399,7 +399,7 @@ def check_by_simulation(
     if not growth > 0 or (offset is not None and not offset != 0):
         raise StudyError("growth and offset must be positive numbers")
     overrides = dict(overrides or {})
-    res = ev(**overrides)
+    res = ev(overrides)
     if not res.ok:
         raise StudyError(
             f"no Hopf point at these parameter values (status {res.status}); "
