@@ -77,7 +77,7 @@ def report(result: HopfResult, model_name: str) -> str:
         lines.append(f"Hopf point on an already UNSTABLE equilibrium; criticality: {kind}")
         lines.append(
             f"  {result.unstable_count} further eigenvalue(s) with positive real part on both "
-            "sides: the cycle born here is a saddle cycle, not a soft or hard onset"
+            "sides: the cycle born here is a saddle cycle whatever the sign of l1"
         )
     lines.append(f"  first Lyapunov coefficient l1 = {_fmt(result.l1)}")
     if mu is not None:

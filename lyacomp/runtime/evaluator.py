@@ -33,7 +33,9 @@ class Tolerances:
     degenerate_atol: float = 0.0
     """... or when |l1| <= atol (in the units of l1)."""
     transversality_rtol: float = 1e-7
-    """d counts as zero when |d| * max(|mu0|, |mu guess|) <= rtol * omega (the pair barely moves)."""
+    """d counts as zero when |d| * (scale of mu) <= rtol * omega (the pair barely moves).
+
+    The scale of mu is max(|mu0|, |guess|), or 1 + |mu0| when the guess is zero."""
 
     def __post_init__(self) -> None:
         for name, value in asdict(self).items():
