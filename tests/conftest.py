@@ -50,4 +50,6 @@ def documented_keys() -> set[str]:
         "cycle_side",
         "period",
         "criticality",
+        "unstable_count",
+        "stable_side",
     }

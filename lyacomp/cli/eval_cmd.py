@@ -53,13 +53,32 @@ def report(result: HopfResult, model_name: str) -> str:
         lines.append(f"  {result.explanation}")
         return "\n".join(lines)
     mu = result.bifurcation_parameter
-    kind = {
-        "supercritical": "SUPERCRITICAL (soft onset: a small stable cycle grows from the "
-        "equilibrium)",
-        "subcritical": "SUBCRITICAL (hard onset: the state jumps away; expect hysteresis)",
-        "degenerate": "DEGENERATE (l1 = 0 to working precision: higher-order terms decide)",
-    }[result.criticality]
-    lines.append(f"onset: {kind}")
+    if result.first_loss_of_stability:
+        kind = {
+            "supercritical": "SUPERCRITICAL (soft onset: a small stable cycle grows from the "
+            "equilibrium)",
+            "subcritical": "SUBCRITICAL (hard onset: the state jumps away; expect hysteresis)",
+            "degenerate": "DEGENERATE (l1 = 0 to working precision: higher-order terms decide)",
+        }[result.criticality]
+        lines.append(f"onset: {kind}")
+        if mu is not None and result.stable_side is not None:
+            lines.append(
+                f"  first loss of stability: the equilibrium is stable for {mu} "
+                f"{result.stable_side} {mu}0"
+            )
+        else:
+            lines.append("  the other eigenvalues have negative real part")
+    else:
+        kind = {
+            "supercritical": "supercritical (l1 < 0)",
+            "subcritical": "subcritical (l1 > 0)",
+            "degenerate": "degenerate (l1 = 0 to working precision)",
+        }[result.criticality]
+        lines.append(f"Hopf point on an already UNSTABLE equilibrium; criticality: {kind}")
+        lines.append(
+            f"  {result.unstable_count} further eigenvalue(s) with positive real part on both "
+            "sides: the cycle born here is a saddle cycle whatever the sign of l1"
+        )
     lines.append(f"  first Lyapunov coefficient l1 = {_fmt(result.l1)}")
     if mu is not None:
         lines.append(f"  critical value {mu}0 = {_fmt(result.critical_value)}")

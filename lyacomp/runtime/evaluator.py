@@ -112,17 +112,19 @@ class Tolerances:
     """Numerical settings of an evaluation (they do not change the compiled code)."""
 
     newton_tol: float = 1e-12
-    """Newton stops when the step is below newton_tol * (1 + |z|)."""
+    """Newton stops when each step component is below newton_tol * (size of that unknown)."""
     max_iter: int = 50
     """Newton iterations per stage."""
     axis_tol: float = 1e-8
-    """|Re lambda| <= axis_tol * |A| counts as on the imaginary axis."""
+    """|Re lambda| <= axis_tol * |A| counts as on the imaginary axis (|A|: balanced norm)."""
     degenerate_rtol: float = 1e-9
     """l1 counts as zero (degenerate) when |l1| <= rtol * (size of the terms that cancel)."""
     degenerate_atol: float = 0.0
     """... or when |l1| <= atol (in the units of l1)."""
     transversality_rtol: float = 1e-7
-    """d counts as zero when |d| * (1 + |mu0|) <= rtol * omega (the pair barely moves)."""
+    """d counts as zero when |d| * (scale of mu) <= rtol * omega (the pair barely moves).
+
+    The scale of mu is max(|mu0|, |guess|), or 1 + |mu0| when the guess is zero."""
 
     def __post_init__(self) -> None:
         for name, value in asdict(self).items():
@@ -318,6 +320,8 @@ class Evaluator:
             "status": np.empty(count, dtype=np.int32),
             "criticality": np.empty(count, dtype=np.int8),
             "cycle_side": np.empty(count, dtype=np.int8),
+            "unstable_count": np.empty(count, dtype=np.int32),
+            "stable_side": np.empty(count, dtype=np.int8),
             **{
                 k: np.empty(count)
                 for k in ("l1", "omega", "period", "critical_value", "transversality")
@@ -331,6 +335,8 @@ class Evaluator:
             c_out.status = ffi.cast("int *", ffi.from_buffer(out["status"]))
             c_out.criticality = ffi.cast("signed char *", ffi.from_buffer(out["criticality"]))
             c_out.cycle_side = ffi.cast("signed char *", ffi.from_buffer(out["cycle_side"]))
+            c_out.unstable_count = ffi.cast("int *", ffi.from_buffer(out["unstable_count"]))
+            c_out.stable_side = ffi.cast("signed char *", ffi.from_buffer(out["stable_side"]))
             for k in (
                 "l1",
                 "omega",

@@ -91,6 +91,26 @@ class HopfResult:
         return Criticality(self._raw.criticality).label
 
     @property
+    def unstable_count(self) -> int | None:
+        """Eigenvalues of A with positive real part besides the critical pair (None when not ok)."""
+        count = int(self._raw.unstable_count)
+        return None if count < 0 else count
+
+    @property
+    def stable_side(self) -> str | None:
+        """'above' or 'below' mu0: where the equilibrium is stable; None if on neither side."""
+        return {1: "above", -1: "below"}.get(self._raw.stable_side)
+
+    @property
+    def first_loss_of_stability(self) -> bool:
+        """True when the Hopf point is where a stable equilibrium first loses stability.
+
+        Only then do "soft onset" (supercritical) and "hard onset" (subcritical) apply; with
+        other unstable eigenvalues the cycle born at the Hopf point is a saddle cycle.
+        """
+        return self.ok and self._raw.unstable_count == 0
+
+    @property
     def iterations(self) -> int:
         return self._raw.iterations
 
@@ -113,6 +133,8 @@ class HopfResult:
             "cycle_side": self.cycle_side,
             "period": _number(self.period),
             "criticality": self.criticality,
+            "unstable_count": self.unstable_count,
+            "stable_side": self.stable_side,
         }
 
     def __repr__(self) -> str:
@@ -136,6 +158,10 @@ class BatchResult:
     status: np.ndarray
     criticality: np.ndarray
     cycle_side: np.ndarray
+    unstable_count: np.ndarray
+    """int32: eigenvalues with positive real part besides the pair; -1 where not ok."""
+    stable_side: np.ndarray
+    """int8: +1 stable above mu0, -1 stable below, 0 on neither side (or not ok)."""
     l1: np.ndarray
     omega: np.ndarray
     period: np.ndarray
@@ -154,6 +180,11 @@ class BatchResult:
     @property
     def ok(self) -> np.ndarray:
         return self.status == Status.OK
+
+    @property
+    def first_loss(self) -> np.ndarray:
+        """Samples whose Hopf point is the first loss of stability of a stable equilibrium."""
+        return self.ok & (self.unstable_count == 0)
 
     @property
     def subcritical(self) -> np.ndarray:
