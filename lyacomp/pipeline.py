@@ -25,6 +25,8 @@ from .runtime import Evaluator, Tolerances
 from .runtime.evaluator import PREFIX
 
 log = logging.getLogger("lyacomp")
+#: Progress notes (the CLI shows them on a terminal): a cold build takes seconds.
+progress_log = logging.getLogger("lyacomp.progress")
 
 
 def generate(
@@ -60,6 +62,7 @@ def compile_model(
         with key_lock(config.cache_dir, key, config.lock_timeout):
             meta = read_entry(config.cache_dir, key)  # another process may have finished it
             if meta is None:
+                progress_log.info("compiling %r (first use; a few seconds) ...", model.name)
                 sources = generate(model, key)
                 build_dir = new_build_dir(config.cache_dir, key)
                 meta = build_extension(sources, tc, build_dir, key)

@@ -18,7 +18,7 @@ from .common import (
 )
 from .hopf_scan import scan_for_hopf
 
-EXAMPLE = "example:\n  lyacomp eval examples/brake_pad_squeal.toml --set mu_s=0.45 --json"
+EXAMPLE = "example:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json"
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:

@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import csv
 import math
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from enum import IntEnum
@@ -437,8 +438,16 @@ def _follow_rows(
     threads: int | None,
 ) -> None:
     """Re-solve row j from row j-1's critical values (in place); a warm-started solution
-    replaces the first-pass one wherever it is ok."""
-    for j in range(1, y.n):
+    replaces the first-pass one wherever it is ok. A progress bar shows on a terminal."""
+    rows: Any = range(1, y.n)
+    if sys.stderr.isatty() and y.n > 50:
+        try:
+            from tqdm import tqdm
+
+            rows = tqdm(rows, desc="map rows", unit="row", leave=False)
+        except ImportError:
+            pass
+    for j in rows:
         guess = grids["critical_value"][j - 1]
         seeded = np.flatnonzero(np.isfinite(guess))
         if not seeded.size:
