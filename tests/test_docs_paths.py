@@ -49,3 +49,27 @@ def test_no_user_facing_pointer_to_math_md():
     for text in texts:
         assert "math.md" not in text.replace("mathematics.md", "")
     assert (ROOT / "docs" / "mathematics.md").exists()
+
+
+def test_cold_compile_announces_itself(caplog):
+    import logging
+    import uuid
+
+    import lyacomp
+
+    name = f"progress note {uuid.uuid4().hex[:8]}"  # a model no cache has seen
+    model = lyacomp.Model(
+        name=name,
+        states={"x": 0.0, "y": 0.0},
+        parameters={"mu": 0.0},
+        equations={"x": "mu*x - y - x**3", "y": "x"},
+        bifurcation="mu",
+    )
+    with caplog.at_level(logging.INFO, logger="lyacomp.progress"):
+        lyacomp.compile(model)
+    notes = [r.getMessage() for r in caplog.records if r.name == "lyacomp.progress"]
+    assert notes == [f"compiling {name!r} (first use; a few seconds) ..."]
+    caplog.clear()
+    with caplog.at_level(logging.INFO, logger="lyacomp.progress"):
+        lyacomp.compile(model)  # from the cache: no note
+    assert not [r for r in caplog.records if r.name == "lyacomp.progress"]
