@@ -113,7 +113,9 @@ def test_classify_sets_unstable_equilibria_apart():
 
 # Two Hopf points on the equilibrium x = y = 0: trace = 2 (mu^2 - c) vanishes at
 # mu = +-sqrt(c) (common practice, no source). Started from the nominal mu = 1 every row
-# finds the upper one; the map must not mix the two.
+# finds the upper one; the row-by-row re-solve must keep it (the first pass alone does not
+# jump on this model either, so this checks the warm start keeps correct values, exact
+# against +-sqrt(c); the jump marking is checked on synthetic grids above).
 TWO_BRANCHES = """
 name = "two_onsets"
 [states]
