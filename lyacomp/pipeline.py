@@ -33,6 +33,8 @@ from .runtime import Evaluator, Tolerances
 from .runtime.evaluator import PREFIX, register_rebuild
 
 log = logging.getLogger("lyacomp")
+#: Progress notes (the CLI shows them on a terminal): a cold build takes seconds.
+progress_log = logging.getLogger("lyacomp.progress")
 
 PACKAGE_ROOT = Path(__file__).resolve().parent
 GENERATOR_SOURCES = (
@@ -122,6 +124,7 @@ def _build_or_load(model: Model, config: BuildConfig, tc: Toolchain) -> tuple[st
         with key_lock(config.cache_dir, key, config.lock_timeout, model.name):
             entry, problem = check_entry(config.cache_dir, key)  # another process may be done
             if entry is None:
+                progress_log.info("compiling %r (first use; a few seconds) ...", model.name)
                 if problem is not None:
                     log.warning(
                         "cache entry %s is damaged (%s); rebuilding it",

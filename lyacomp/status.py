@@ -35,8 +35,9 @@ class Status(IntEnum):
 _EXPLANATIONS = {
     Status.OK: "the Hopf point was found and l1 computed",
     Status.NO_CONVERGENCE: (
-        "Newton's method did not converge; try a better starting guess for the states "
-        "or the bifurcation parameter"
+        "Newton's method did not converge to a Hopf point from the starting guess; this "
+        "alone does not tell whether one exists (lyacomp eval scans the bifurcation "
+        "parameter to tell); if one does, a starting guess nearer to it reaches it"
     ),
     Status.NEUTRAL_SADDLE: (
         "the trace condition holds but the pair is real (+-k): a neutral saddle, not a Hopf point"
@@ -55,8 +56,9 @@ _EXPLANATIONS = {
         "the computation produced NaN or infinity (outside the model's domain?)"
     ),
     Status.NOT_CRITICAL: (
-        "the given point is not at onset (the critical pair is off the imaginary axis); "
-        "declare a [bifurcation] parameter to solve for onset"
+        "the point is not at onset (the critical pair is off the imaginary axis): without "
+        "a [bifurcation] parameter the given point itself must be the Hopf point; with a "
+        "closed-form critical value, that value does not put the equilibrium at onset"
     ),
     Status.RESONANCE: "2*i*omega is also an eigenvalue (1:2 resonance); l1 is not defined",
     Status.EXTRA_CRITICAL_EIGENVALUE: (

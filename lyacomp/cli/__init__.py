@@ -42,6 +42,8 @@ def main(argv: Sequence[str] | None = None) -> int:
         level=logging.INFO if args.verbose else logging.WARNING,
         format="lyacomp: %(message)s",
     )
+    if sys.stderr.isatty():  # progress notes only for a person watching
+        logging.getLogger("lyacomp.progress").setLevel(logging.INFO)
     try:
         return int(args.func(args) or 0)
     except LyacompError as exc:

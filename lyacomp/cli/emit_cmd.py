@@ -13,8 +13,8 @@ from ..pipeline import generate
 from .common import add_model_args, model_from_args
 
 EXAMPLE = (
-    "example:\n  lyacomp emit examples/brake_pad_squeal.toml -o generated/\n"
-    "  cc -O2 -fopenmp -c generated/brake_pad_squeal.c   # then link with -lm"
+    "example:\n  lyacomp emit examples/belt_friction_pad.toml -o generated/\n"
+    "  cc -O2 -fopenmp -c generated/belt_friction_pad.c   # then link with -lm"
 )
 
 

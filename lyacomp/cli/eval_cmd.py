@@ -6,6 +6,7 @@ import argparse
 import json
 import sys
 
+from ..model import Model
 from ..pipeline import compile_model
 from ..runtime import CAUTION, HopfResult
 from .common import (
@@ -15,8 +16,9 @@ from .common import (
     model_from_args,
     overrides_from_args,
 )
+from .hopf_scan import scan_for_hopf
 
-EXAMPLE = "example:\n  lyacomp eval examples/brake_pad_squeal.toml --set mu_s=0.45 --json"
+EXAMPLE = "example:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json"
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -50,7 +52,7 @@ def report(result: HopfResult, model_name: str) -> str:
     """A short human-readable account of one evaluation."""
     lines = [f"model: {model_name}", f"status: {result.status}"]
     if not result.ok:
-        lines.append(f"  {result.explanation}")
+        # the explanation goes to stderr once (run); the report only names the status
         return "\n".join(lines)
     mu = result.bifurcation_parameter
     if result.first_loss_of_stability:
@@ -81,7 +83,7 @@ def report(result: HopfResult, model_name: str) -> str:
         )
     lines.append(f"  first Lyapunov coefficient l1 = {_fmt(result.l1)}")
     if mu is not None:
-        lines.append(f"  critical value {mu}0 = {_fmt(result.critical_value)}")
+        lines.append(f"  critical value of {mu}: {mu}_c = {_fmt(result.critical_value)}")
     lines.append(f"  frequency omega = {_fmt(result.omega)} (period {_fmt(result.period)})")
     eq = ", ".join(f"{k} = {_fmt(v)}" for k, v in result.equilibrium.items())
     lines.append(f"  equilibrium: {eq}")
@@ -90,11 +92,21 @@ def report(result: HopfResult, model_name: str) -> str:
         if result.cycle_side is not None:
             amp = ", ".join(f"{k}: {_fmt(v)}" for k, v in result.amplitude.items())
             lines.append(
-                f"  the cycle exists for {mu} {result.cycle_side} {mu}0; amplitude "
-                f"~ K*sqrt(|{mu} - {mu}0|) with K = {amp}"
+                f"  the cycle exists for {mu} {result.cycle_side} {mu}_c; amplitude "
+                f"~ K*sqrt(|{mu} - {mu}_c|) with K = {amp}"
             )
     lines.append("caution: " + CAUTION)
     return "\n".join(lines)
+
+
+def _failure_text(result: HopfResult, model: Model) -> str:
+    if result.status == "not_critical" and model.critical_value is not None:
+        return (
+            f"the closed-form critical value of {model.bifurcation} ([bifurcation] "
+            "critical_value) does not put the equilibrium at onset: the critical pair is off "
+            "the imaginary axis there; check that expression"
+        )
+    return result.explanation
 
 
 def run(args: argparse.Namespace) -> int:
@@ -112,6 +124,10 @@ def run(args: argparse.Namespace) -> int:
     else:
         print(report(result, model.name))
     if not result.ok:
-        print(f"lyacomp: {result.status}: {result.explanation}", file=sys.stderr)
+        print(f"lyacomp: {result.status}: {_failure_text(result, model)}", file=sys.stderr)
+        if result.status == "no_convergence":
+            outcome = scan_for_hopf(ev, values)
+            if outcome is not None:
+                print(f"lyacomp: {outcome.message()}", file=sys.stderr)
         return 1
     return 0

@@ -21,8 +21,10 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         "map",
         help="onset type over a parameter plane, with the curve l1 = 0",
         description="Classify every point of a grid over two parameters (supercritical, "
-        "subcritical, no Hopf point, solver failure) with one batch evaluation, locate the "
-        "curve l1 = 0 by root finding along the grid lines, and write a PNG and the grid data. "
+        "subcritical, degenerate, no Hopf point, solver failure, Hopf point on an already "
+        "unstable equilibrium, another Hopf branch), each row started from the critical "
+        "values of the previous one; locate the curve l1 = 0 by root finding along the grid "
+        "lines (grid points at l1 = 0 are on it), and write a PNG and the grid data. "
         "With --line instead, report where along one parameter l1 changes sign. The "
         "bifurcation parameter is solved for at every point and cannot be an axis.",
         epilog=EXAMPLE,

@@ -87,7 +87,7 @@ def report(check) -> str:
     """Predictions beside measurements, as text."""
     mu = check.bifurcation
     lines = [
-        f"{check.model}: {check.criticality} onset at {mu}0 = {check.critical_value:.10g}; "
+        f"{check.model}: {check.criticality} onset at {mu}_c = {check.critical_value:.10g}; "
         f"simulated at {mu} = {check.value:.10g} (offset {check.offset:+.4g})"
     ]
     if check.measured is not None:

@@ -6,12 +6,21 @@ sorts the points into supercritical, subcritical, degenerate, no Hopf point and 
 failure. The curve l1 = 0 (degenerate Hopf points) is then located by root finding
 (scipy brentq) on the compiled l1 along every grid line whose neighbouring points
 have l1 of opposite signs, so its accuracy is that of the root finder, not of the grid.
+Grid points where l1 is exactly zero (or degenerate within the tolerance) are zeros in
+their own right: they are reported as located points, never skipped by the sign test.
+
+Branch continuity: after the first pass, the grid is swept row by row and every point
+is solved again from its solved neighbour in the previous row (that neighbour's
+critical value as the starting guess of the bifurcation parameter), so the Hopf branch
+is followed across the plane. Points whose critical value still jumps against their
+neighbours far more than the grid spacing explains are marked ``BRANCH_CHANGE``.
 """
 
 from __future__ import annotations
 
 import csv
 import math
+import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from enum import IntEnum
@@ -32,6 +41,8 @@ class PointClass(IntEnum):
     SUBCRITICAL = 2
     DEGENERATE = 3
     SOLVER_FAILURE = 4
+    BRANCH_CHANGE = 5
+    UNSTABLE_EQUILIBRIUM = 6
 
     @property
     def words(self) -> str:
@@ -44,7 +55,13 @@ _CLASS_WORDS = {
     PointClass.SUBCRITICAL: "subcritical (hard onset)",
     PointClass.DEGENERATE: "degenerate (l1 = 0)",
     PointClass.SOLVER_FAILURE: "solver failure",
+    PointClass.BRANCH_CHANGE: "another Hopf branch (critical value jumps)",
+    PointClass.UNSTABLE_EQUILIBRIUM: "Hopf point on an already unstable equilibrium",
 }
+
+#: A neighbour's critical value may differ by this many times the typical neighbour step
+#: (the median over the grid, per axis) before the point counts as on another branch.
+BRANCH_JUMP_FACTOR = 25.0
 
 #: Statuses that mean the solver could not give an answer (as opposed to answering that
 #: there is no proper Hopf point here).
@@ -218,8 +235,14 @@ _FAILURE = np.array(
 )
 
 
-def classify(status: np.ndarray, criticality: np.ndarray) -> np.ndarray:
-    """Grid classes (:class:`PointClass` codes, int8) from batch status and criticality."""
+def classify(
+    status: np.ndarray, criticality: np.ndarray, first_loss: np.ndarray | None = None
+) -> np.ndarray:
+    """Grid classes (:class:`PointClass` codes, int8) from batch status and criticality.
+
+    With ``first_loss`` (the batch's flag: ok and no other unstable eigenvalue), ok points
+    whose equilibrium is already unstable get their own class instead of an onset type.
+    """
     status = np.asarray(status)
     classes = np.full(status.shape, PointClass.NO_HOPF, dtype=np.int8)
     known = (status >= 0) & (status < _FAILURE.size)
@@ -227,7 +250,40 @@ def classify(status: np.ndarray, criticality: np.ndarray) -> np.ndarray:
     ok = status == Status.OK
     for code, cls in _CRITICALITY_CLASS.items():
         classes[ok & (criticality == code)] = cls
+    if first_loss is not None:
+        classes[ok & ~np.asarray(first_loss, bool)] = PointClass.UNSTABLE_EQUILIBRIUM
     return classes
+
+
+def first_loss_of(batch: Any) -> np.ndarray:
+    """The batch's first-loss-of-stability flags (ok, and stable on one side of onset)."""
+    return np.asarray(batch.first_loss, bool)
+
+
+def branch_changes(critical_value: np.ndarray, factor: float = BRANCH_JUMP_FACTOR) -> np.ndarray:
+    """Points of a 2-D grid whose critical value jumps against a grid neighbour.
+
+    A jump is a neighbour difference above ``factor`` times the median neighbour
+    difference along that axis (plus a rounding floor); both points of a jumping pair
+    are marked, since either may be the one on the other branch. NaN points take no part.
+    """
+    crit = np.asarray(critical_value, float)
+    marked = np.zeros(crit.shape, bool)
+    floor = 1e-9 * (1.0 + np.nanmax(np.abs(crit), initial=0.0, where=np.isfinite(crit)))
+    for axis in (0, 1):
+        if crit.shape[axis] < 2:
+            continue
+        diff = np.abs(np.diff(crit, axis=axis))
+        finite = np.isfinite(diff)
+        if not finite.any():
+            continue
+        jump = finite & (diff > factor * float(np.median(diff[finite])) + floor)
+        lo = [slice(None)] * 2
+        hi = [slice(None)] * 2
+        lo[axis], hi[axis] = slice(0, -1), slice(1, None)
+        marked[tuple(lo)] |= jump
+        marked[tuple(hi)] |= jump
+    return marked
 
 
 def _check_names(ev: Any, axes: list[str], fixed: Mapping[str, float]) -> None:
@@ -291,10 +347,17 @@ def _bracket_root(
 
 
 def _sign_changes(l1: np.ndarray) -> np.ndarray:
-    """Indices i with finite l1[i], l1[i+1] of strictly opposite sign (along the last axis)."""
+    """Indices i with finite l1[i], l1[i+1] of strictly opposite sign (along the last axis).
+
+    Exact zeros never form such a bracket; :func:`_zero_points` reports them instead."""
     a, b = l1[..., :-1], l1[..., 1:]
     with np.errstate(invalid="ignore"):
         return np.isfinite(a) & np.isfinite(b) & (a * b < 0)
+
+
+def _zero_points(l1: np.ndarray, criticality: np.ndarray) -> np.ndarray:
+    """Grid points that are zeros of l1 themselves: l1 == 0 or classified degenerate."""
+    return (np.asarray(l1) == 0) | (np.asarray(criticality) == Criticality.DEGENERATE)
 
 
 def parameter_map(
@@ -304,12 +367,17 @@ def parameter_map(
     fixed: Mapping[str, float] | None = None,
     *,
     locate_curve: bool = True,
+    follow_branch: bool = True,
     threads: int | None = None,
 ) -> ParameterMap:
-    """Classify every point of the ``x`` by ``y`` grid with one batch call, then locate the
-    l1 = 0 curve by brentq along the grid lines where l1 changes sign.
+    """Classify every point of the ``x`` by ``y`` grid, then locate the l1 = 0 curve by
+    brentq along the grid lines where l1 changes sign (grid points at l1 = 0 and
+    degenerate points are on the curve themselves).
 
-    ``fixed`` sets other parameters (default: nominal values).
+    ``fixed`` sets other parameters (default: nominal values). With ``follow_branch``
+    each row is solved again from the previous row's critical values (one batch call per
+    row), so the branch found at the first row is followed across the plane; points
+    where the critical value still jumps are classed ``BRANCH_CHANGE``.
     """
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
     _check_names(ev, [x.name, y.name], fixed)
@@ -318,37 +386,97 @@ def parameter_map(
     if x.n * y.n > MAX_GRID_POINTS:
         raise StudyError(f"grid of {x.n * y.n} points is too large (at most {MAX_GRID_POINTS})")
     xx, yy = np.meshgrid(x.values, y.values)
-    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
     shape = xx.shape
-    status = np.asarray(batch.status).reshape(shape)
+    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
+    grids = _grids(batch, shape)
+    if follow_branch:
+        _follow_rows(ev, fixed, x, y, grids, threads)
+    classes = classify(grids["status"], grids["criticality"], grids.get("first_loss"))
+    if follow_branch:
+        jumps = branch_changes(grids["critical_value"]) & (grids["status"] == Status.OK)
+        classes[jumps] = PointClass.BRANCH_CHANGE
     pmap = ParameterMap(
         x=x,
         y=y,
         fixed=fixed,
-        classes=classify(status, np.asarray(batch.criticality).reshape(shape)),
-        status=status,
-        l1=np.asarray(batch.l1, float).reshape(shape),
-        critical_value=np.asarray(batch.critical_value, float).reshape(shape),
-        omega=np.asarray(batch.omega, float).reshape(shape),
+        classes=classes,
+        status=grids["status"],
+        l1=grids["l1"],
+        critical_value=grids["critical_value"],
+        omega=grids["omega"],
         status_names=dict(_STATUS_NAMES),
         bifurcation=ev.bifurcation,
     )
     if locate_curve:
-        _locate_zero_curve(ev, pmap)
+        _locate_zero_curve(ev, pmap, grids["criticality"])
     return pmap
 
 
-def _locate_zero_curve(ev: Any, pmap: ParameterMap) -> None:
-    points: list[tuple[float, float]] = []
+_GRID_KEYS = ("status", "criticality", "l1", "critical_value", "omega")
+
+
+def _grids(batch: Any, shape: tuple[int, ...]) -> dict[str, np.ndarray]:
+    grids = {k: np.array(getattr(batch, k)).reshape(shape) for k in _GRID_KEYS}
+    grids["l1"] = grids["l1"].astype(float)
+    grids["first_loss"] = first_loss_of(batch).reshape(shape)
+    return grids
+
+
+def _follow_rows(
+    ev: Any,
+    fixed: Mapping[str, float],
+    x: Axis,
+    y: Axis,
+    grids: dict[str, np.ndarray],
+    threads: int | None,
+) -> None:
+    """Re-solve row j from row j-1's critical values (in place); a warm-started solution
+    replaces the first-pass one wherever it is ok. A progress bar shows on a terminal."""
+    rows: Any = range(1, y.n)
+    if sys.stderr.isatty() and y.n > 50:
+        try:
+            from tqdm import tqdm
+
+            rows = tqdm(rows, desc="map rows", unit="row", leave=False)
+        except ImportError:
+            pass
+    for j in rows:
+        guess = grids["critical_value"][j - 1]
+        seeded = np.flatnonzero(np.isfinite(guess))
+        if not seeded.size:
+            continue
+        batch = ev.batch(
+            {
+                **fixed,
+                x.name: x.values[seeded],
+                y.name: float(y.values[j]),
+                ev.bifurcation: guess[seeded],
+            },
+            threads=threads,
+        )
+        row = _grids(batch, (seeded.size,))
+        take = row["status"] == Status.OK
+        for key, values in row.items():
+            if key in grids:
+                grids[key][j, seeded[take]] = values[take]
+
+
+def _locate_zero_curve(ev: Any, pmap: ParameterMap, criticality: np.ndarray) -> None:
+    zero = _zero_points(pmap.l1, criticality) & (pmap.status == Status.OK)
+    xx, yy = np.meshgrid(pmap.x.values, pmap.y.values)
+    points: list[tuple[float, float]] = [
+        (float(a), float(b)) for a, b in zip(xx[zero], yy[zero], strict=True)
+    ]
     unresolved = 0
     # rows: y fixed, root in x; columns: x fixed, root in y
-    for along, across, l1, crit in (
-        (pmap.x, pmap.y, pmap.l1, pmap.critical_value),
-        (pmap.y, pmap.x, pmap.l1.T, pmap.critical_value.T),
+    for along, across, l1, crit, at_zero in (
+        (pmap.x, pmap.y, pmap.l1, pmap.critical_value, zero),
+        (pmap.y, pmap.x, pmap.l1.T, pmap.critical_value.T, zero.T),
     ):
         grid_along = along.values
         grid_across = across.values
-        for j, i in zip(*np.nonzero(_sign_changes(l1)), strict=True):
+        brackets = _sign_changes(l1) & ~at_zero[:, :-1] & ~at_zero[:, 1:]
+        for j, i in zip(*np.nonzero(brackets), strict=True):
             base = {**pmap.fixed, across.name: float(grid_across[j])}
             root = _bracket_root(
                 ev, base, along.name, grid_along[i], grid_along[i + 1], float(crit[j, i])
@@ -373,7 +501,8 @@ def find_switches(
     threads: int | None = None,
 ) -> list[Switch]:
     """Where along ``name`` in [lo, hi] does l1 change sign? One batch call on ``n`` points,
-    then brentq inside every bracket; each switch carries its critical value and frequency."""
+    then brentq inside every bracket; a sample point where l1 is zero (or degenerate) is a
+    switch at that value itself. Each switch carries its critical value and frequency."""
     axis = Axis(name, float(lo), float(hi), int(n))
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
     _check_names(ev, [name], fixed)
@@ -381,17 +510,35 @@ def find_switches(
     batch = ev.batch({**fixed, name: values}, threads=threads)
     l1 = np.asarray(batch.l1, float)
     crit = np.asarray(batch.critical_value, float)
-    switches = []
-    for i in np.flatnonzero(_sign_changes(l1)):
-        before, after = (
-            ("supercritical", "subcritical") if l1[i] < 0 else ("subcritical", "supercritical")
-        )
+    omega = np.asarray(batch.omega, float)
+    zero = _zero_points(l1, batch.criticality) & (np.asarray(batch.status) == Status.OK)
+    nonzero = np.flatnonzero(np.isfinite(l1) & ~zero)
+    found: list[tuple[float, Switch]] = []
+    for k in np.flatnonzero(zero):
+        # the onset type on either side: the nearest sample with a non-zero l1
+        left, right = nonzero[nonzero < k], nonzero[nonzero > k]
+        before = _onset_word(l1[left[-1]]) if left.size else "degenerate"
+        after = _onset_word(l1[right[0]]) if right.size else "degenerate"
+        value = float(values[k])
+        sw = Switch(name, value, float(crit[k]), float(omega[k]), before, after, (value, value))
+        found.append((value, sw))
+    brackets = _sign_changes(l1) & ~zero[:-1] & ~zero[1:]
+    for i in np.flatnonzero(brackets):
+        before, after = _onset_word(l1[i]), _onset_word(l1[i + 1])
         bracket = (float(values[i]), float(values[i + 1]))
         root = _bracket_root(ev, fixed, name, *bracket, float(crit[i]))
         if root is None:
-            switches.append(Switch(name, math.nan, math.nan, math.nan, before, after, bracket))
+            found.append(
+                (bracket[0], Switch(name, math.nan, math.nan, math.nan, before, after, bracket))
+            )
             continue
         res = ev({**fixed, name: root, ev.bifurcation: float(crit[i])})
-        crit_value, omega = (res.critical_value, res.omega) if res.ok else (math.nan, math.nan)
-        switches.append(Switch(name, root, float(crit_value), float(omega), before, after, bracket))
-    return switches
+        crit_value, om = (res.critical_value, res.omega) if res.ok else (math.nan, math.nan)
+        found.append(
+            (root, Switch(name, root, float(crit_value), float(om), before, after, bracket))
+        )
+    return [sw for _, sw in sorted(found, key=lambda item: item[0])]
+
+
+def _onset_word(l1: float) -> str:
+    return "supercritical" if l1 < 0 else "subcritical"

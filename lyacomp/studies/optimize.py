@@ -255,6 +255,13 @@ class RobustStatistic:
     ``statistic="probability"``: fraction of samples with l1 > 0. It is piecewise
     constant in ``x``; use a derivative-free method, or give ``smoothing`` (a width in
     units of l1) to replace the step by a logistic ramp that gradients can follow.
+    The smoothed value is biased: it is the mean of ``expit(l1 / smoothing)``, not the
+    probability. Every sample within a few widths of l1 = 0 counts partly (a soft sample
+    at l1 = -smoothing counts 0.27, a hard one at +smoothing only 0.73), which pulls the
+    value toward 1/2; for a density f of l1 the difference is about
+    ``-(pi**2 / 6) * smoothing**2 * f'(0)``, so a small probability (most mass at l1 < 0,
+    so f falls at 0) is over-estimated. Keep the width small against the spread of l1,
+    and report the unsmoothed probability at the design found.
     ``statistic="quantile"``: the ``level`` quantile of l1 (e.g. 0.95).
 
     Non-ok samples (``on_failure``): ``"worst"`` (default, conservative) counts them

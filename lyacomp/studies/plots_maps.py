@@ -10,14 +10,17 @@ import numpy as np
 from lyacomp.studies.maps import ParameterMap, PointClass
 
 #: Our own colour choices. Soft and hard onset are blue and orange, which stay apart
-#: under the common colour-vision deficiencies; the other classes are greys and a
-#: dark purple that differ from both in lightness, so the map also reads in grey print.
+#: under the common colour-vision deficiencies; the other classes are greys, a dark
+#: purple, a magenta (another Hopf branch) and a pale teal (Hopf point on an already
+#: unstable equilibrium), set apart from both in hue or lightness.
 CLASS_COLOURS = {
     PointClass.NO_HOPF: "#e4e4e4",
     PointClass.SUPERCRITICAL: "#2f6db0",
     PointClass.SUBCRITICAL: "#f0a04b",
     PointClass.DEGENERATE: "#5b2a86",
     PointClass.SOLVER_FAILURE: "#555555",
+    PointClass.BRANCH_CHANGE: "#d6336c",
+    PointClass.UNSTABLE_EQUILIBRIUM: "#9fd8c8",
 }
 CURVE_COLOUR = "#000000"
 

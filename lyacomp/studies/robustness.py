@@ -29,6 +29,7 @@ import numpy as np
 
 from lyacomp.errors import StudyError
 from lyacomp.status import Criticality, Status
+from lyacomp.studies.maps import first_loss_of
 from lyacomp.studies.sample_store import open_store
 from lyacomp.studies.uncertainty import (
     METHODS,
@@ -198,6 +199,12 @@ class RobustnessResult:
     fixed: dict[str, float]
     status_counts: dict[str, int]
     ok: int
+    #: ok samples whose Hopf point is the first loss of stability of a stable equilibrium:
+    #: the base of the hard-onset probability (equal to ``ok`` from a build without the
+    #: stability context)
+    first_loss: int
+    #: ok samples whose equilibrium is already unstable at the Hopf point (no onset type)
+    unstable_equilibrium: int
     subcritical: int
     degenerate: int
     confidence: float
@@ -209,8 +216,9 @@ class RobustnessResult:
 
     @property
     def probability_subcritical(self) -> float:
-        """Fraction of ok samples with a hard (subcritical) onset; NaN if none is ok."""
-        return self.subcritical / self.ok if self.ok else math.nan
+        """Fraction of first-loss-of-stability samples with a hard (subcritical) onset;
+        NaN if there is none."""
+        return self.subcritical / self.first_loss if self.first_loss else math.nan
 
     @property
     def fraction_not_ok(self) -> float:
@@ -229,6 +237,8 @@ class RobustnessResult:
             "uncertainty": self.distributions,
             "fixed": self.fixed,
             "ok": self.ok,
+            "first_loss": self.first_loss,
+            "unstable_equilibrium": self.unstable_equilibrium,
             "subcritical": self.subcritical,
             "degenerate": self.degenerate,
             "probability_subcritical": _jsonable(self.probability_subcritical),
@@ -261,9 +271,14 @@ class RobustnessResult:
             lines.append("  fixed: " + ", ".join(f"{k}={v:g}" for k, v in self.fixed.items()))
         lines.append(
             f"Hard (subcritical) onset: probability {self.probability_subcritical:.6g}"
-            f" ({self.subcritical} of {self.ok} ok samples; {pct} Wilson interval"
-            f" {lo:.6g} .. {hi:.6g})"
+            f" ({self.subcritical} of {self.first_loss} samples where the Hopf point is the"
+            f" first loss of stability; {pct} Wilson interval {lo:.6g} .. {hi:.6g})"
         )
+        if self.unstable_equilibrium:
+            lines.append(
+                f"  Hopf point on an already unstable equilibrium (no soft/hard onset, not"
+                f" counted above): {self.unstable_equilibrium}"
+            )
         if self.degenerate:
             lines.append(f"  degenerate (l1 = 0 exactly): {self.degenerate}")
         not_ok = {k: v for k, v in self.status_counts.items() if k != "ok" and v}
@@ -430,7 +445,7 @@ def run_robustness(
 
     reservoir = _Reservoir(min(keep, samples), len(columns))
     counts = np.zeros(max(labels) + 1, dtype=np.int64)
-    done = subcritical = degenerate = 0
+    done = subcritical = degenerate = n_first = 0
     store = open_store(save, columns, spec.dimension, labels) if save is not None else None
     bar = _progress(samples, progress)
     stopped = False
@@ -456,8 +471,10 @@ def run_robustness(
                     counts = np.pad(counts, (0, len(found) - len(counts)))
                 counts += found
                 crit = np.asarray(batch.criticality)
-                subcritical += int(np.count_nonzero(ok & (crit == Criticality.SUBCRITICAL)))
-                degenerate += int(np.count_nonzero(ok & (crit == Criticality.DEGENERATE)))
+                first = ok & first_loss_of(batch)
+                n_first += int(np.count_nonzero(first))
+                subcritical += int(np.count_nonzero(first & (crit == Criticality.SUBCRITICAL)))
+                degenerate += int(np.count_nonzero(first & (crit == Criticality.DEGENERATE)))
                 if reservoir.capacity:
                     reservoir.offer(keys[ok], block[ok])
                 done += m
@@ -491,10 +508,12 @@ def run_robustness(
         fixed=fixed,
         status_counts={labels.get(i, f"status_{i}"): int(c) for i, c in enumerate(counts)},
         ok=n_ok,
+        first_loss=n_first,
+        unstable_equilibrium=n_ok - n_first,
         subcritical=subcritical,
         degenerate=degenerate,
         confidence=confidence,
-        interval=wilson_interval(subcritical, n_ok, confidence),
+        interval=wilson_interval(subcritical, n_first, confidence),
         quantiles=quantiles,
         quantile_basis=len(kept_rows),
         ranking=ranking,

@@ -266,7 +266,8 @@ def find_equilibrium(nm: NumericModel, guess: np.ndarray) -> np.ndarray:
 
 def critical_direction(jacobian: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Critical eigenvectors at the eigenvalue with positive imaginary part closest to the
-    imaginary axis: ``q`` with <q, q> = 1 and the adjoint ``p`` with <p, q> = 1 (math.md).
+    imaginary axis: ``q`` with <q, q> = 1 and the adjoint ``p`` with <p, q> = 1
+    (docs/mathematics.md).
 
     ``z = <p, x - x0>`` is then the complex normal-form coordinate of a point near x0.
     """
