@@ -297,6 +297,30 @@ def _sign_changes(l1: np.ndarray) -> np.ndarray:
         return np.isfinite(a) & np.isfinite(b) & (a * b < 0)
 
 
+def map_rows(
+    ev: Any,
+    fixed: Mapping[str, float],
+    x: Axis,
+    y: Axis,
+    first: int,
+    stop: int,
+    threads: int | None,
+) -> dict[str, np.ndarray]:
+    """Evaluate grid rows ``first`` to ``stop - 1`` (y index): status, criticality, l1,
+    critical value and omega, each of shape ``(stop - first, x.n)``. Every point is
+    evaluated on its own, so any split into row blocks gives the same bits."""
+    xx, yy = np.meshgrid(x.values, y.values[first:stop])
+    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
+    shape = xx.shape
+    return {
+        "status": np.asarray(batch.status).reshape(shape),
+        "criticality": np.asarray(batch.criticality).reshape(shape),
+        "l1": np.asarray(batch.l1, float).reshape(shape),
+        "critical_value": np.asarray(batch.critical_value, float).reshape(shape),
+        "omega": np.asarray(batch.omega, float).reshape(shape),
+    }
+
+
 def parameter_map(
     ev: Any,
     x: Axis,
@@ -305,11 +329,14 @@ def parameter_map(
     *,
     locate_curve: bool = True,
     threads: int | None = None,
+    client: Any = None,
 ) -> ParameterMap:
     """Classify every point of the ``x`` by ``y`` grid with one batch call, then locate the
     l1 = 0 curve by brentq along the grid lines where l1 changes sign.
 
-    ``fixed`` sets other parameters (default: nominal values).
+    ``fixed`` sets other parameters (default: nominal values). ``client`` (a
+    ``distributed.Client``) evaluates blocks of grid rows on a Dask cluster, with the same
+    grids bit for bit; the l1 = 0 curve is then located here.
     """
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
     _check_names(ev, [x.name, y.name], fixed)
@@ -317,19 +344,22 @@ def parameter_map(
         raise StudyError(f"the two axes must be different parameters (both are {x.name!r})")
     if x.n * y.n > MAX_GRID_POINTS:
         raise StudyError(f"grid of {x.n * y.n} points is too large (at most {MAX_GRID_POINTS})")
-    xx, yy = np.meshgrid(x.values, y.values)
-    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
-    shape = xx.shape
-    status = np.asarray(batch.status).reshape(shape)
+    if client is None:
+        grids = map_rows(ev, fixed, x, y, 0, y.n, threads)
+    else:
+        from lyacomp.studies.cluster import map_on_cluster
+
+        grids = map_on_cluster(client, ev, fixed, x, y, threads)
+    status = grids["status"]
     pmap = ParameterMap(
         x=x,
         y=y,
         fixed=fixed,
-        classes=classify(status, np.asarray(batch.criticality).reshape(shape)),
+        classes=classify(status, grids["criticality"]),
         status=status,
-        l1=np.asarray(batch.l1, float).reshape(shape),
-        critical_value=np.asarray(batch.critical_value, float).reshape(shape),
-        omega=np.asarray(batch.omega, float).reshape(shape),
+        l1=grids["l1"],
+        critical_value=grids["critical_value"],
+        omega=grids["omega"],
         status_names=dict(_STATUS_NAMES),
         bifurcation=ev.bifurcation,
     )
