@@ -77,6 +77,25 @@ def open_client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
         yield client
 
 
+def add_cluster_args(parser: Any) -> None:
+    """``--scheduler`` and ``--workers`` (the CLI's way to pass a Dask client)."""
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        default=None,
+        help="run on the Dask cluster at ADDRESS (e.g. tcp://host:8786); same answer, bit"
+        " for bit (needs the cluster extra)",
+    )
+    group.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        metavar="N",
+        help="start a local Dask cluster of N worker processes (needs the cluster extra)",
+    )
+
+
 def _ship(client: Any, ev: Any) -> tuple[Any, str]:
     """Send the pickled evaluator to every worker once; returns (future, digest)."""
     payload = pickle.dumps(ev)

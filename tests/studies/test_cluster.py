@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import os
 import signal
+import sys
 import threading
 import time
 
@@ -13,11 +14,17 @@ import numpy as np
 import pytest
 
 pytest.importorskip("scipy")
-distributed = pytest.importorskip("distributed")
 
 import lyacomp  # noqa: E402
+from lyacomp.cli import main  # noqa: E402
 from lyacomp.studies.maps import Axis, parameter_map  # noqa: E402
 from lyacomp.studies.robustness import run_robustness  # noqa: E402
+
+try:
+    import distributed
+except ImportError:
+    distributed = None
+needs_dask = pytest.mark.skipif(distributed is None, reason="dask/distributed not installed")
 
 # Hopf normal form with a tilt (invented for these tests): x' = mu x - w y + s x r^2 +
 # a x y, y' = w x + mu y + s y r^2 + b y^2 ... only the sign pattern of l1 matters here;
@@ -32,6 +39,24 @@ MODEL = dict(
     },
     bifurcation="mu",
 )
+MODEL_TOML = """
+name = "tilted_form"
+[states]
+x = 0.0
+y = 0.0
+[parameters]
+mu = 0.0
+s = -0.1
+a = 0.5
+b = 0.5
+[equations]
+x = "mu*x - 1.5*y + s*x*(x**2 + y**2) + a*x*y"
+y = "1.5*x + mu*y + s*y*(x**2 + y**2) + b*y**2"
+[bifurcation]
+parameter = "mu"
+[uncertainty]
+s = { distribution = "normal", mean = -0.1, sd = 0.3 }
+"""
 TABLE = {
     "s": {"distribution": "normal", "mean": -0.1, "sd": 0.3},
     "a": {"distribution": "uniform", "low": -1.0, "high": 1.0},
@@ -45,6 +70,8 @@ def ev():
 
 @pytest.fixture(scope="module")
 def client():
+    if distributed is None:
+        pytest.skip("dask/distributed not installed")
     with (
         distributed.LocalCluster(
             n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None
@@ -113,3 +140,27 @@ def test_killed_worker_leaves_the_result_unchanged(ev, client):
     worker.join(120)
     assert not worker.is_alive()
     assert dump(out["result"]) == dump(local)
+
+
+@pytest.mark.parametrize("option", [["--workers", "2"], ["--scheduler", "tcp://127.0.0.1:1"]])
+def test_without_dask_the_cluster_options_say_how_to_install_it(
+    option, tmp_path, monkeypatch, capsys
+):
+    path = tmp_path / "m.toml"
+    path.write_text(MODEL_TOML)
+    monkeypatch.setitem(sys.modules, "distributed", None)  # import now raises ImportError
+    code = main(["robustness", str(path), "--samples", "10", "--seed", "1", *option])
+    err = capsys.readouterr().err.strip()
+    assert code != 0
+    assert "pip install 'lyacomp[cluster]'" in err and len(err.splitlines()) == 1
+
+
+@needs_dask
+def test_cli_workers_gives_the_local_json(tmp_path, capsys):
+    path = tmp_path / "m.toml"
+    path.write_text(MODEL_TOML)
+    args = ["robustness", str(path), "--samples", "3000", "--seed", "4", "--chunk-size", "700"]
+    assert main([*args, "--json"]) == 0
+    local = json.loads(capsys.readouterr().out)
+    assert main([*args, "--json", "--workers", "2"]) == 0
+    assert json.loads(capsys.readouterr().out) == local
