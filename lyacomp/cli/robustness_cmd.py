@@ -23,7 +23,8 @@ example:
 The uncertain parameters come from the model's [uncertainty] table (keys: see
 docs/uncertainty.md). A seed makes the run reproducible to the bit, whatever
 --threads is, also on a Dask cluster (--scheduler / --workers). Ctrl-C stops
-after the current chunk and reports the samples done so far (exit code 130). A local, near-onset analysis: no substitute for testing.
+after the current chunk and reports the samples done so far (exit code 130).
+A local, near-onset analysis: no substitute for testing.
 """
 
 
