@@ -119,6 +119,19 @@ def _worker_evaluator(payload: bytes, digest: str) -> Any:
     return ev
 
 
+def _worker_threads(threads: int | None) -> int | None:
+    """Batch threads on a worker: by default its Dask thread count, not every core of a
+    machine it may share with other worker processes."""
+    if threads is not None:
+        return threads
+    try:
+        from distributed import get_worker
+
+        return int(get_worker().state.nthreads)
+    except (ImportError, ValueError, AttributeError):
+        return None
+
+
 def _worker_name() -> str:
     try:
         from distributed import get_worker
@@ -143,6 +156,7 @@ def _robustness_task(
     from lyacomp.studies.robustness import evaluate_chunk
 
     ev = _worker_evaluator(payload, digest)
+    threads = _worker_threads(threads)
     keys, block, status, crit = evaluate_chunk(ev, spec, base, seed, chunk, m, method, threads)
     ok = status == 0
     keys, block = keys[ok], block[ok]
@@ -266,7 +280,8 @@ def _map_task(
 ) -> dict[str, np.ndarray]:
     from lyacomp.studies.maps import map_rows
 
-    return map_rows(_worker_evaluator(payload, digest), fixed, x, y, first, stop, threads)
+    ev = _worker_evaluator(payload, digest)
+    return map_rows(ev, fixed, x, y, first, stop, _worker_threads(threads))
 
 
 def map_on_cluster(

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import os
+import pickle
 import signal
 import sys
 import threading
@@ -17,6 +18,7 @@ pytest.importorskip("scipy")
 
 import lyacomp  # noqa: E402
 from lyacomp.cli import main  # noqa: E402
+from lyacomp.errors import CompilerNotFoundError  # noqa: E402
 from lyacomp.studies.maps import Axis, parameter_map  # noqa: E402
 from lyacomp.studies.robustness import run_robustness  # noqa: E402
 
@@ -136,9 +138,10 @@ def test_killed_worker_leaves_the_result_unchanged(ev, client):
     while time.monotonic() < deadline and not client.has_what().get(next(iter(client.nthreads()))):
         time.sleep(0.02)
     pids = client.run(os.getpid)
+    running_at_kill = worker.is_alive()
     os.kill(next(iter(pids.values())), signal.SIGKILL)
     worker.join(120)
-    assert not worker.is_alive()
+    assert running_at_kill and not worker.is_alive()
     assert dump(out["result"]) == dump(local)
 
 
@@ -164,3 +167,19 @@ def test_cli_workers_gives_the_local_json(tmp_path, capsys):
     local = json.loads(capsys.readouterr().out)
     assert main([*args, "--json", "--workers", "2"]) == 0
     assert json.loads(capsys.readouterr().out) == local
+
+
+def _no_compiler():
+    raise CompilerNotFoundError("no C compiler (cc, gcc or clang) on PATH")
+
+
+class _NeedsCompiler:
+    def __reduce__(self):
+        return (_no_compiler, ())
+
+
+def test_a_worker_without_compiler_is_named_in_the_error():
+    from lyacomp.studies.cluster import _worker_evaluator
+
+    with pytest.raises(CompilerNotFoundError, match=r"on Dask worker .*: no C compiler"):
+        _worker_evaluator(pickle.dumps(_NeedsCompiler()), "digest-of-a-test-payload")
