@@ -44,7 +44,7 @@ def main() -> None:
 
     with (
         distributed.LocalCluster(
-            n_workers=WORKERS, threads_per_worker=1, processes=True, dashboard_address=None
+            n_workers=WORKERS, threads_per_worker=1, processes=True, dashboard_address=":0"
         ) as cluster,
         distributed.Client(cluster) as client,
     ):

@@ -70,7 +70,7 @@ def open_client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
         raise StudyError(f"--workers must be an integer >= 1; got {workers!r}")
     with (
         distributed.LocalCluster(
-            n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None
+            n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0"
         ) as cluster,
         distributed.Client(cluster) as client,
     ):
