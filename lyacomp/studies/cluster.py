@@ -1,6 +1,6 @@
 """Running robustness studies and maps on a Dask cluster (the optional ``cluster`` extra).
 
-The evaluator travels once per worker as its pickle (model plus build settings); each
+The evaluator travels with each task as its pickle (model plus build settings); each
 worker compiles it into its own cache or loads it from there, under the cache's per-key
 lock. Robustness chunks draw from streams keyed by ``(seed, chunk index)`` and map blocks
 evaluate every grid point on its own, so the answer does not depend on the number of
@@ -96,11 +96,14 @@ def add_cluster_args(parser: Any) -> None:
     )
 
 
-def _ship(client: Any, ev: Any) -> tuple[Any, str]:
-    """Send the pickled evaluator to every worker once; returns (future, digest)."""
+def _ship(ev: Any) -> tuple[bytes, str]:
+    """The pickled evaluator (about a kilobyte: model plus settings) and its digest.
+
+    It rides along with every task rather than being scattered once, so a worker that
+    dies takes no shared data with it and a restarted one needs nothing from the others.
+    """
     payload = pickle.dumps(ev)
-    digest = hashlib.sha256(payload).hexdigest()
-    return client.scatter(payload, broadcast=True, hash=False), digest
+    return payload, hashlib.sha256(payload).hexdigest()
 
 
 def _worker_evaluator(payload: bytes, digest: str) -> Any:
@@ -210,7 +213,7 @@ def robustness_on_cluster(
     futures are cancelled and the chunks finished so far make the partial result.
     """
     distributed = require_distributed()
-    payload, digest = _ship(client, ev)
+    payload, digest = _ship(ev)
     starts = iter(enumerate(range(0, samples, chunk_size)))
     pending: set = set()
     counts = counts.copy()
@@ -293,7 +296,7 @@ def map_on_cluster(
     threads: int | None,
 ) -> dict[str, np.ndarray]:
     """Evaluate a map grid in blocks of rows on the cluster; the grids as ``map_rows``."""
-    payload, digest = _ship(client, ev)
+    payload, digest = _ship(ev)
     rows = max(1, min(math.ceil(MAP_BLOCK_POINTS / x.n), math.ceil(y.n / _in_flight(client))))
     futures = [
         client.submit(

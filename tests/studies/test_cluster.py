@@ -132,11 +132,11 @@ def test_killed_worker_leaves_the_result_unchanged(ev, client):
 
     worker = threading.Thread(target=run)
     worker.start()
-    # kill one worker process once it has finished some chunks (its nanny restarts it
-    # and the scheduler reschedules what it held)
+    # kill one worker process while chunks are in flight (its nanny restarts it and the
+    # scheduler reschedules the chunks it held)
     deadline = time.monotonic() + 20
-    while time.monotonic() < deadline and not client.has_what().get(next(iter(client.nthreads()))):
-        time.sleep(0.02)
+    while time.monotonic() < deadline and not any(client.processing().values()):
+        time.sleep(0.01)
     pids = client.run(os.getpid)
     running_at_kill = worker.is_alive()
     os.kill(next(iter(pids.values())), signal.SIGKILL)
