@@ -44,6 +44,9 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     parser.add_argument("--threads", type=int, default=None, help="threads for the batch")
     parser.add_argument("--json", action="store_true", help="print one JSON object")
+    from ..studies.cluster import add_cluster_args
+
+    add_cluster_args(parser)
     parser.set_defaults(func=run)
 
 
@@ -59,6 +62,8 @@ def run(args: argparse.Namespace) -> int:
     model = model_from_args(args)
     fixed = overrides_from_args(args, model)
     if args.line is not None:
+        if args.scheduler is not None or args.workers is not None:
+            raise StudyError("--line runs here (one small batch); drop --scheduler / --workers")
         axis = Axis.parse(args.line)
         ev = compile_model(model)
         switches = find_switches(
@@ -89,7 +94,10 @@ def run(args: argparse.Namespace) -> int:
 
     x, y = Axis.parse(args.x), Axis.parse(args.y)
     ev = compile_model(model)
-    pmap = parameter_map(ev, x, y, fixed, threads=args.threads)
+    from ..studies.cluster import open_client
+
+    with open_client(args.scheduler, args.workers) as client:
+        pmap = parameter_map(ev, x, y, fixed, threads=args.threads, client=client)
     from ..studies.plots_maps import plot_map
 
     png = Path(args.out or f"{model.name}_map.png")

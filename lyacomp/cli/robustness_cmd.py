@@ -22,8 +22,9 @@ example:
 
 The uncertain parameters come from the model's [uncertainty] table (keys: see
 docs/uncertainty.md). A seed makes the run reproducible to the bit, whatever
---threads is. Ctrl-C stops after the current chunk and reports the samples done
-so far (exit code 130). A local, near-onset analysis: no substitute for testing.
+--threads is, also on a Dask cluster (--scheduler / --workers). Ctrl-C stops
+after the current chunk and reports the samples done so far (exit code 130).
+A local, near-onset analysis: no substitute for testing.
 """
 
 
@@ -84,26 +85,32 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--save", metavar="FILE", default=None, help="write every sample to FILE (.csv or .npz)"
     )
+    from lyacomp.studies.cluster import add_cluster_args
+
+    add_cluster_args(parser)
     parser.set_defaults(func=run)
 
 
 def run(args: argparse.Namespace) -> int:
     """Run the study and print its report; 130 if it was interrupted."""
     import lyacomp
+    from lyacomp.studies.cluster import open_client
     from lyacomp.studies.robustness import run_robustness
 
     model = model_from_args(args)
     ev = lyacomp.compile(model)
-    result = run_robustness(
-        ev,
-        args.samples,
-        seed=args.seed,
-        method=args.method,
-        fixed=overrides_from_args(args, model),
-        threads=args.threads,
-        chunk_size=args.chunk_size,
-        save=args.save,
-    )
+    with open_client(args.scheduler, args.workers) as client:
+        result = run_robustness(
+            ev,
+            args.samples,
+            seed=args.seed,
+            method=args.method,
+            fixed=overrides_from_args(args, model),
+            threads=args.threads,
+            chunk_size=args.chunk_size,
+            save=args.save,
+            client=client,
+        )
     if args.plot:
         from lyacomp.studies.plots_robustness import plot_robustness
 

@@ -360,6 +360,23 @@ def _zero_points(l1: np.ndarray, criticality: np.ndarray) -> np.ndarray:
     return (np.asarray(l1) == 0) | (np.asarray(criticality) == Criticality.DEGENERATE)
 
 
+def map_rows(
+    ev: Any,
+    fixed: Mapping[str, float],
+    x: Axis,
+    y: Axis,
+    first: int,
+    stop: int,
+    threads: int | None,
+) -> dict[str, np.ndarray]:
+    """Evaluate grid rows ``first`` to ``stop - 1`` (y index): status, criticality, l1,
+    critical value, omega and first_loss, each of shape ``(stop - first, x.n)``. Every point is
+    evaluated on its own, so any split into row blocks gives the same bits."""
+    xx, yy = np.meshgrid(x.values, y.values[first:stop])
+    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
+    return _grids(batch, xx.shape)
+
+
 def parameter_map(
     ev: Any,
     x: Axis,
@@ -369,6 +386,7 @@ def parameter_map(
     locate_curve: bool = True,
     follow_branch: bool = True,
     threads: int | None = None,
+    client: Any = None,
 ) -> ParameterMap:
     """Classify every point of the ``x`` by ``y`` grid, then locate the l1 = 0 curve by
     brentq along the grid lines where l1 changes sign (grid points at l1 = 0 and
@@ -378,6 +396,9 @@ def parameter_map(
     each row is solved again from the previous row's critical values (one batch call per
     row), so the branch found at the first row is followed across the plane; points
     where the critical value still jumps are classed ``BRANCH_CHANGE``.
+    ``client`` (a
+    ``distributed.Client``) evaluates blocks of grid rows on a Dask cluster, with the same
+    grids bit for bit; the l1 = 0 curve is then located here.
     """
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
     _check_names(ev, [x.name, y.name], fixed)
@@ -385,11 +406,14 @@ def parameter_map(
         raise StudyError(f"the two axes must be different parameters (both are {x.name!r})")
     if x.n * y.n > MAX_GRID_POINTS:
         raise StudyError(f"grid of {x.n * y.n} points is too large (at most {MAX_GRID_POINTS})")
-    xx, yy = np.meshgrid(x.values, y.values)
-    shape = xx.shape
-    batch = ev.batch({**fixed, x.name: xx.ravel(), y.name: yy.ravel()}, threads=threads)
-    grids = _grids(batch, shape)
+    if client is None:
+        grids = map_rows(ev, fixed, x, y, 0, y.n, threads)
+    else:
+        from lyacomp.studies.cluster import map_on_cluster
+
+        grids = map_on_cluster(client, ev, fixed, x, y, threads)
     if follow_branch:
+        # sequential by nature (row j starts from row j-1), so it runs here in both cases
         _follow_rows(ev, fixed, x, y, grids, threads)
     classes = classify(grids["status"], grids["criticality"], grids.get("first_loss"))
     if follow_branch:

@@ -179,8 +179,11 @@ class _Reservoir:
         self.threshold = float(self.keys.max())
 
     def contents(self) -> np.ndarray:
+        """The kept rows in increasing key order: the same array whatever order the
+        rows were offered in (chunk order on a cluster is arbitrary)."""
         self._merge()
-        return self.rows[: self.size]
+        order = np.argsort(self.keys[: self.size], kind="stable")
+        return self.rows[: self.size][order]
 
 
 @dataclass
@@ -402,6 +405,41 @@ def _output_block(batch: Any) -> np.ndarray:
     )
 
 
+def evaluate_chunk(
+    ev: Any,
+    spec: UncertaintySpec,
+    base: Mapping[str, float],
+    seed: int,
+    chunk: int,
+    m: int,
+    method: str,
+    threads: int | None,
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, int]]:
+    """Draw and evaluate the ``m`` samples of chunk ``chunk``: keys, block, status, tallies.
+
+    The tallies count the samples whose Hopf point is a first loss of stability
+    (``first_loss``) and, among them, the hard and degenerate onsets.
+
+    A pure function of its arguments (the stream is keyed by ``(seed, chunk)``), so the
+    local loop and a cluster worker compute the same bits.
+    """
+    rng = chunk_rng(seed, chunk)
+    values = spec.values(draw_scores(rng, m, spec.dimension, method))
+    keys = rng.random(m)
+    inputs = {**base, **{n: values[:, j] for j, n in enumerate(spec.names)}}
+    batch = ev.batch(inputs, threads=threads)
+    block = np.column_stack([values, _output_block(batch)])
+    status = np.asarray(batch.status)
+    crit = np.asarray(batch.criticality)
+    first = (status == 0) & first_loss_of(batch)
+    tallies = {
+        "first_loss": int(np.count_nonzero(first)),
+        "subcritical": int(np.count_nonzero(first & (crit == Criticality.SUBCRITICAL))),
+        "degenerate": int(np.count_nonzero(first & (crit == Criticality.DEGENERATE))),
+    }
+    return keys, block, status, tallies
+
+
 def run_robustness(
     ev: Any,
     samples: int,
@@ -417,6 +455,7 @@ def run_robustness(
     confidence: float = 0.95,
     progress: bool | None = None,
     save: str | Path | None = None,
+    client: Any = None,
 ) -> RobustnessResult:
     """Monte Carlo over the uncertain parameters of a compiled model.
 
@@ -426,6 +465,8 @@ def run_robustness(
     the critical value. ``progress`` None shows a bar only on a terminal. Ctrl-C
     stops after the current chunk and returns what was evaluated
     (``interrupted`` is then True). ``save`` (.csv or .npz) writes every sample.
+    ``client`` (a ``distributed.Client``) runs the chunks on a Dask cluster with the
+    same result, bit for bit; ``save`` is then not available (only summaries travel).
     """
     samples = _check_count(samples, "samples", 1)
     chunk_size = _check_count(chunk_size, "chunk_size", 1)
@@ -437,6 +478,10 @@ def run_robustness(
         raise StudyError(f"quantile levels must lie strictly between 0 and 1; got {levels}")
     if not 0.0 < confidence < 1.0:
         raise StudyError(f"confidence must lie strictly between 0 and 1; got {confidence}")
+    if client is not None and save is not None:
+        raise StudyError(
+            "save= is not available on a cluster (only summaries travel back); run locally"
+        )
     seed = resolve_seed(seed)
     spec, fixed = study_setup(ev, uncertainty, fixed)
     columns = output_columns(spec, ev.states)
@@ -451,30 +496,44 @@ def run_robustness(
     stopped = False
     try:
         with _stop_on_interrupt() as flag:
-            for chunk, start in enumerate(range(0, samples, chunk_size)):
+            if client is not None:
+                from lyacomp.studies.cluster import robustness_on_cluster
+
+                done, counts, n_first, subcritical, degenerate = robustness_on_cluster(
+                    client,
+                    ev,
+                    spec,
+                    base,
+                    seed,
+                    samples,
+                    chunk_size,
+                    method,
+                    threads,
+                    counts,
+                    reservoir,
+                    bar,
+                    flag,
+                )
+            # with a client the cluster did every chunk and this loop has none left
+            local_starts = range(0, samples if client is None else 0, chunk_size)
+            for chunk, start in enumerate(local_starts):
                 if flag.stop:
                     stopped = True
                     break
                 m = min(chunk_size, samples - start)
-                rng = chunk_rng(seed, chunk)
-                values = spec.values(draw_scores(rng, m, spec.dimension, method))
-                keys = rng.random(m)
-                inputs = {**base, **{n: values[:, j] for j, n in enumerate(spec.names)}}
-                batch = ev.batch(inputs, threads=threads)
-                status = np.asarray(batch.status)
+                keys, block, status, tallies = evaluate_chunk(
+                    ev, spec, base, seed, chunk, m, method, threads
+                )
                 ok = status == 0
-                block = np.column_stack([values, _output_block(batch)])
                 if store is not None:
                     store.write(block, status)
                 found = np.bincount(status, minlength=len(counts))
                 if len(found) > len(counts):
                     counts = np.pad(counts, (0, len(found) - len(counts)))
                 counts += found
-                crit = np.asarray(batch.criticality)
-                first = ok & first_loss_of(batch)
-                n_first += int(np.count_nonzero(first))
-                subcritical += int(np.count_nonzero(first & (crit == Criticality.SUBCRITICAL)))
-                degenerate += int(np.count_nonzero(first & (crit == Criticality.DEGENERATE)))
+                n_first += tallies["first_loss"]
+                subcritical += tallies["subcritical"]
+                degenerate += tallies["degenerate"]
                 if reservoir.capacity:
                     reservoir.offer(keys[ok], block[ok])
                 done += m

@@ -1,0 +1,320 @@
+"""Running robustness studies and maps on a Dask cluster (the optional ``cluster`` extra).
+
+The evaluator travels with each task as its pickle (model plus build settings); each
+worker compiles it into its own cache or loads it from there, under the cache's per-key
+lock. Robustness chunks draw from streams keyed by ``(seed, chunk index)`` and map blocks
+evaluate every grid point on its own, so the answer does not depend on the number of
+workers, on threads or on the order in which chunks finish. Only summaries travel back:
+per chunk the status counts, the hard / degenerate counts and the ok rows whose random
+keys can still enter the kept subset (at most ``keep`` per chunk); the client holds one
+kept subset, so its memory does not grow with the sample count.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import math
+import pickle
+import threading
+from collections.abc import Iterator, Mapping
+from contextlib import contextmanager
+from typing import Any
+
+import numpy as np
+
+from lyacomp.errors import CompilerNotFoundError, StudyError
+
+INSTALL_HINT = "install it with: pip install 'lyacomp[cluster]'"
+
+#: Dask recomputes a chunk whose task raised this many times (a worker that died is
+#: handled by the scheduler on top of this).
+RETRIES = 3
+
+#: Rows of a map evaluated per task are chosen to give about this many grid points.
+MAP_BLOCK_POINTS = 1 << 14
+
+_evaluators: dict[str, Any] = {}
+_evaluators_lock = threading.Lock()
+
+
+def require_distributed() -> Any:
+    """The ``distributed`` module, or a one-line StudyError saying how to install it."""
+    try:
+        import distributed
+    except ImportError:
+        raise StudyError(
+            f"running on a cluster needs dask and distributed; {INSTALL_HINT}"
+        ) from None
+    return distributed
+
+
+@contextmanager
+def open_client(scheduler: str | None, workers: int | None) -> Iterator[Any]:
+    """A client for ``scheduler``, or for a LocalCluster of ``workers`` processes, or None."""
+    if scheduler is None and workers is None:
+        yield None
+        return
+    if scheduler is not None and workers is not None:
+        raise StudyError("give either --scheduler ADDRESS or --workers N, not both")
+    distributed = require_distributed()
+    if scheduler is not None:
+        try:
+            client = distributed.Client(scheduler, timeout="20s")
+        except (OSError, TimeoutError) as exc:
+            raise StudyError(f"cannot reach the Dask scheduler at {scheduler}: {exc}") from None
+        with client:
+            yield client
+        return
+    if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+        raise StudyError(f"--workers must be an integer >= 1; got {workers!r}")
+    with (
+        distributed.LocalCluster(
+            n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=":0"
+        ) as cluster,
+        distributed.Client(cluster) as client,
+    ):
+        yield client
+
+
+def add_cluster_args(parser: Any) -> None:
+    """``--scheduler`` and ``--workers`` (the CLI's way to pass a Dask client)."""
+    group = parser.add_mutually_exclusive_group()
+    group.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        default=None,
+        help="run on the Dask cluster at ADDRESS (e.g. tcp://host:8786); same answer, bit"
+        " for bit (needs the cluster extra)",
+    )
+    group.add_argument(
+        "--workers",
+        type=int,
+        default=None,
+        metavar="N",
+        help="start a local Dask cluster of N worker processes (needs the cluster extra)",
+    )
+
+
+def _ship(ev: Any) -> tuple[bytes, str]:
+    """The pickled evaluator (about a kilobyte: model plus settings) and its digest.
+
+    It rides along with every task rather than being scattered once, so a worker that
+    dies takes no shared data with it and a restarted one needs nothing from the others.
+    """
+    payload = pickle.dumps(ev)
+    return payload, hashlib.sha256(payload).hexdigest()
+
+
+def _worker_evaluator(payload: bytes, digest: str) -> Any:
+    """The evaluator on this worker: built (or loaded from the cache) once per process."""
+    ev = _evaluators.get(digest)
+    if ev is not None:
+        return ev
+    with _evaluators_lock:
+        ev = _evaluators.get(digest)
+        if ev is None:
+            try:
+                ev = pickle.loads(payload)
+            except CompilerNotFoundError as exc:
+                raise CompilerNotFoundError(f"on Dask worker {_worker_name()}: {exc}") from None
+            _evaluators[digest] = ev
+    return ev
+
+
+def _worker_threads(threads: int | None) -> int | None:
+    """Batch threads on a worker: by default its Dask thread count, not every core of a
+    machine it may share with other worker processes."""
+    if threads is not None:
+        return threads
+    try:
+        from distributed import get_worker
+
+        return int(get_worker().state.nthreads)
+    except (ImportError, ValueError, AttributeError):
+        return None
+
+
+def _worker_name() -> str:
+    try:
+        from distributed import get_worker
+
+        return str(get_worker().address)
+    except (ImportError, ValueError):
+        return "(not a Dask worker)"
+
+
+def _robustness_task(
+    payload: bytes,
+    digest: str,
+    spec: Any,
+    base: Mapping[str, float],
+    seed: int,
+    chunk: int,
+    m: int,
+    method: str,
+    threads: int | None,
+    keep: int,
+) -> dict[str, Any]:
+    from lyacomp.studies.robustness import evaluate_chunk
+
+    ev = _worker_evaluator(payload, digest)
+    threads = _worker_threads(threads)
+    keys, block, status, tallies = evaluate_chunk(ev, spec, base, seed, chunk, m, method, threads)
+    ok = status == 0
+    keys, block = keys[ok], block[ok]
+    if len(keys) > keep:
+        # only the chunk's smallest keys can be among the smallest overall
+        chosen = np.argpartition(keys, keep - 1)[:keep] if keep else np.arange(0)
+        keys, block = keys[chosen], block[chosen]
+    return {
+        "m": m,
+        "counts": np.bincount(status),
+        **tallies,
+        "keys": keys,
+        "rows": block,
+    }
+
+
+def _in_flight(client: Any) -> int:
+    threads = sum(client.nthreads().values()) or 1
+    return 4 * threads
+
+
+def _wait_some(distributed: Any, pending: set, timeout: float) -> set:
+    try:
+        done, _ = distributed.wait(list(pending), timeout=timeout, return_when="FIRST_COMPLETED")
+    except TimeoutError:
+        return set()
+    return set(done)
+
+
+def robustness_on_cluster(
+    client: Any,
+    ev: Any,
+    spec: Any,
+    base: Mapping[str, float],
+    seed: int,
+    samples: int,
+    chunk_size: int,
+    method: str,
+    threads: int | None,
+    counts: np.ndarray,
+    reservoir: Any,
+    bar: Any,
+    flag: Any,
+) -> tuple[int, np.ndarray, int, int, int]:
+    """Run every chunk of a robustness study on the cluster and merge the summaries.
+
+    Adds to a copy of ``counts`` and offers the kept rows to ``reservoir``; returns
+    (samples done, status counts, first-loss-of-stability samples, and among those the
+    subcritical and degenerate ones). When ``flag.stop`` is set (Ctrl-C) the outstanding
+    futures are cancelled and the chunks finished so far make the partial result.
+    """
+    distributed = require_distributed()
+    payload, digest = _ship(ev)
+    starts = iter(enumerate(range(0, samples, chunk_size)))
+    pending: set = set()
+    counts = counts.copy()
+    done = n_first = subcritical = degenerate = 0
+
+    def submit_more() -> None:
+        for chunk, start in starts:
+            m = min(chunk_size, samples - start)
+            pending.add(
+                client.submit(
+                    _robustness_task,
+                    payload,
+                    digest,
+                    spec,
+                    base,
+                    seed,
+                    chunk,
+                    m,
+                    method,
+                    threads,
+                    reservoir.capacity,
+                    retries=RETRIES,
+                    pure=False,
+                )
+            )
+            if len(pending) >= limit:
+                return
+
+    limit = _in_flight(client)
+    try:
+        submit_more()
+        while pending:
+            if flag.stop:
+                break
+            finished = _wait_some(distributed, pending, 0.25)
+            for future in finished:
+                pending.discard(future)
+                part = future.result()
+                found = part["counts"]
+                if len(found) > len(counts):
+                    counts = np.pad(counts, (0, len(found) - len(counts)))
+                counts[: len(found)] += found
+                n_first += part["first_loss"]
+                subcritical += part["subcritical"]
+                degenerate += part["degenerate"]
+                if reservoir.capacity:
+                    reservoir.offer(part["keys"], part["rows"])
+                done += part["m"]
+                if bar is not None:
+                    bar.update(part["m"])
+            if not flag.stop:
+                submit_more()
+    finally:
+        if pending:
+            client.cancel(list(pending))
+    return done, counts, n_first, subcritical, degenerate
+
+
+def _map_task(
+    payload: bytes,
+    digest: str,
+    fixed: Mapping[str, float],
+    x: Any,
+    y: Any,
+    first: int,
+    stop: int,
+    threads: int | None,
+) -> dict[str, np.ndarray]:
+    from lyacomp.studies.maps import map_rows
+
+    ev = _worker_evaluator(payload, digest)
+    return map_rows(ev, fixed, x, y, first, stop, _worker_threads(threads))
+
+
+def map_on_cluster(
+    client: Any,
+    ev: Any,
+    fixed: Mapping[str, float],
+    x: Any,
+    y: Any,
+    threads: int | None,
+) -> dict[str, np.ndarray]:
+    """Evaluate a map grid in blocks of rows on the cluster; the grids as ``map_rows``."""
+    payload, digest = _ship(ev)
+    rows = max(1, min(math.ceil(MAP_BLOCK_POINTS / x.n), math.ceil(y.n / _in_flight(client))))
+    futures = [
+        client.submit(
+            _map_task,
+            payload,
+            digest,
+            fixed,
+            x,
+            y,
+            first,
+            min(first + rows, y.n),
+            threads,
+            retries=RETRIES,
+            pure=False,
+        )
+        for first in range(0, y.n, rows)
+    ]
+    try:
+        parts = client.gather(futures)
+    finally:
+        client.cancel(futures)
+    return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
