@@ -66,7 +66,7 @@ def report(result: HopfResult, model_name: str) -> str:
         if mu is not None and result.stable_side is not None:
             lines.append(
                 f"  first loss of stability: the equilibrium is stable for {mu} "
-                f"{result.stable_side} {mu}0"
+                f"{result.stable_side} {mu}_c"
             )
         else:
             lines.append("  the other eigenvalues have negative real part")
