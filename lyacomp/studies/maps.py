@@ -263,9 +263,12 @@ def first_loss_of(batch: Any) -> np.ndarray:
 def branch_changes(critical_value: np.ndarray, factor: float = BRANCH_JUMP_FACTOR) -> np.ndarray:
     """Points of a 2-D grid whose critical value jumps against a grid neighbour.
 
-    A jump is a neighbour difference above ``factor`` times the median neighbour
-    difference along that axis (plus a rounding floor); both points of a jumping pair
-    are marked, since either may be the one on the other branch. NaN points take no part.
+    A jump is a neighbour difference above ``factor`` times the larger of the two adjacent
+    differences along the same grid line (plus a rounding floor): a steep but smooth slope
+    has adjacent differences of its own size, a change of branch stands out from them.
+    Where no adjacent difference is finite, the median difference along the axis serves.
+    Both points of a jumping pair are marked, since either may be the one on the other
+    branch. NaN points take no part.
     """
     crit = np.asarray(critical_value, float)
     marked = np.zeros(crit.shape, bool)
@@ -273,11 +276,15 @@ def branch_changes(critical_value: np.ndarray, factor: float = BRANCH_JUMP_FACTO
     for axis in (0, 1):
         if crit.shape[axis] < 2:
             continue
-        diff = np.abs(np.diff(crit, axis=axis))
+        diff = np.moveaxis(np.abs(np.diff(crit, axis=axis)), axis, 0)
         finite = np.isfinite(diff)
         if not finite.any():
             continue
-        jump = finite & (diff > factor * float(np.median(diff[finite])) + floor)
+        padded = np.full((diff.shape[0] + 2,) + diff.shape[1:], np.nan)
+        padded[1:-1] = diff
+        around = np.fmax(padded[:-2], padded[2:])
+        around = np.where(np.isfinite(around), around, float(np.median(diff[finite])))
+        jump = np.moveaxis(finite & (diff > factor * around + floor), 0, axis)
         lo = [slice(None)] * 2
         hi = [slice(None)] * 2
         lo[axis], hi[axis] = slice(0, -1), slice(1, None)

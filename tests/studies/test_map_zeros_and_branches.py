@@ -161,3 +161,16 @@ def test_map_colours_unstable_equilibria_apart(tmp_path):
     ev = lyacomp.compile(lyacomp.load_model(path))
     pmap = parameter_map(ev, Axis("a", 0.1, 1.0, 4), Axis("b", -0.5, 0.5, 3))
     assert np.all(pmap.classes == PointClass.UNSTABLE_EQUILIBRIUM)
+
+
+def test_branch_changes_ignore_a_steep_smooth_edge():
+    # common practice, no source: a critical value that grows steeply but smoothly towards
+    # one edge of the plane (here like 1/y, differences growing by a bounded ratio per
+    # cell) is one branch; a median-based test marked such edges in the bundled demo map
+    y, x = np.mgrid[1:32, 0:20].astype(float)
+    steep = 1.0 + 0.02 * x + 4.0 / y**2
+    assert not branch_changes(steep).any()
+    jumped = steep.copy()
+    jumped[10:, :] += 3.0
+    marked = branch_changes(jumped)
+    assert marked[9].all() and marked[10].all() and marked.sum() == 40
