@@ -210,6 +210,8 @@ def robustness_on_cluster(
     subcritical and degenerate ones). When ``flag.stop`` is set (Ctrl-C) the outstanding
     futures are cancelled and the chunks finished so far make the partial result.
     """
+    from lyacomp.studies.robustness import add_counts
+
     distributed = require_distributed()
     payload, digest = _ship(ev)
     starts = iter(enumerate(range(0, samples, chunk_size)))
@@ -250,10 +252,7 @@ def robustness_on_cluster(
             for future in finished:
                 pending.discard(future)
                 part = future.result()
-                found = part["counts"]
-                if len(found) > len(counts):
-                    counts = np.pad(counts, (0, len(found) - len(counts)))
-                counts[: len(found)] += found
+                counts = add_counts(counts, part["counts"])
                 n_first += part["first_loss"]
                 subcritical += part["subcritical"]
                 degenerate += part["degenerate"]

@@ -405,6 +405,14 @@ def _output_block(batch: Any) -> np.ndarray:
     )
 
 
+def add_counts(counts: np.ndarray, found: np.ndarray) -> np.ndarray:
+    """``counts + found`` for per-status counts of different lengths (codes 0..k)."""
+    if len(found) > len(counts):
+        counts = np.pad(counts, (0, len(found) - len(counts)))
+    counts[: len(found)] += found
+    return counts
+
+
 def evaluate_chunk(
     ev: Any,
     spec: UncertaintySpec,
@@ -527,10 +535,7 @@ def run_robustness(
                 ok = status == 0
                 if store is not None:
                     store.write(block, status)
-                found = np.bincount(status, minlength=len(counts))
-                if len(found) > len(counts):
-                    counts = np.pad(counts, (0, len(found) - len(counts)))
-                counts += found
+                counts = add_counts(counts, np.bincount(status))
                 n_first += tallies["first_loss"]
                 subcritical += tallies["subcritical"]
                 degenerate += tallies["degenerate"]
