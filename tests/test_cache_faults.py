@@ -290,7 +290,7 @@ def test_key_changes_with_generator_code_templates_and_version(tmp_path, monkeyp
     templates = tmp_path / "templates"
     shutil.copytree(render.templates_dir(), templates)
     before = render.templates_digest_input()
-    hopf = templates / "hopf.c.j2"
+    hopf = templates / "stage_lyapunov.c.j2"
     hopf.write_text(hopf.read_text() + "\n")
     monkeypatch.setattr(render, "templates_dir", lambda: templates)
     assert render.templates_digest_input() != before
