@@ -85,6 +85,20 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--save", metavar="FILE", default=None, help="write every sample to FILE (.csv or .npz)"
     )
+    parser.add_argument(
+        "--hard-samples",
+        metavar="FILE",
+        default=None,
+        help="write the hard-onset samples (up to --keep-hard of them, a random subset) to"
+        " FILE (.csv or .npz); works on a cluster too",
+    )
+    parser.add_argument(
+        "--keep-hard",
+        type=int,
+        default=10_000,
+        metavar="K",
+        help="hard-onset samples kept for --hard-samples and the JSON count (default 10000)",
+    )
     from lyacomp.studies.cluster import add_cluster_args
 
     add_cluster_args(parser)
@@ -109,8 +123,11 @@ def run(args: argparse.Namespace) -> int:
             threads=args.threads,
             chunk_size=args.chunk_size,
             save=args.save,
+            keep_hard=args.keep_hard,
             client=client,
         )
+    if args.hard_samples:
+        result.write_hard_samples(args.hard_samples)
     if args.plot:
         from lyacomp.studies.plots_robustness import plot_robustness
 
@@ -119,11 +136,13 @@ def run(args: argparse.Namespace) -> int:
         report = result.to_dict()
         report["plot"] = args.plot
         report["save"] = args.save
+        report["hard_samples"] = args.hard_samples
         json.dump(report, sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
         print(result.summary())
-        for what, path in (("plot", args.plot), ("samples", args.save)):
+        outputs = (("plot", args.plot), ("samples", args.save), ("hard samples", args.hard_samples))
+        for what, path in outputs:
             if path:
                 print(f"{what} written to {path}")
     return 130 if result.interrupted else 0

@@ -5,9 +5,10 @@ worker compiles it into its own cache or loads it from there, under the cache's 
 lock. Robustness chunks draw from streams keyed by ``(seed, chunk index)`` and map blocks
 evaluate every grid point on its own, so the answer does not depend on the number of
 workers, on threads or on the order in which chunks finish. Only summaries travel back:
-per chunk the status counts, the hard / degenerate counts and the ok rows whose random
-keys can still enter the kept subset (at most ``keep`` per chunk); the client holds one
-kept subset, so its memory does not grow with the sample count.
+per chunk the status counts, the hard / degenerate counts, the ok rows whose random
+keys can still enter the kept subset (at most ``keep`` per chunk) and likewise the
+hard-onset rows (at most ``keep_hard``); the client holds one subset of each, so its
+memory does not grow with the sample count.
 """
 
 from __future__ import annotations
@@ -154,25 +155,34 @@ def _robustness_task(
     method: str,
     threads: int | None,
     keep: int,
+    keep_hard: int,
 ) -> dict[str, Any]:
     from lyacomp.studies.robustness import evaluate_chunk
 
     ev = _worker_evaluator(payload, digest)
     threads = _worker_threads(threads)
-    keys, block, status, tallies = evaluate_chunk(ev, spec, base, seed, chunk, m, method, threads)
-    ok = status == 0
-    keys, block = keys[ok], block[ok]
-    if len(keys) > keep:
-        # only the chunk's smallest keys can be among the smallest overall
-        chosen = np.argpartition(keys, keep - 1)[:keep] if keep else np.arange(0)
-        keys, block = keys[chosen], block[chosen]
+    keys, block, status, hard, tallies = evaluate_chunk(
+        ev, spec, base, seed, chunk, m, method, threads
+    )
+    ok_keys, ok_rows = _smallest_keys(keys[status == 0], block[status == 0], keep)
+    hard_keys, hard_rows = _smallest_keys(keys[hard], block[hard], keep_hard)
     return {
         "m": m,
         "counts": np.bincount(status),
         **tallies,
-        "keys": keys,
-        "rows": block,
+        "keys": ok_keys,
+        "rows": ok_rows,
+        "hard_keys": hard_keys,
+        "hard_rows": hard_rows,
     }
+
+
+def _smallest_keys(keys: np.ndarray, rows: np.ndarray, keep: int) -> tuple[np.ndarray, np.ndarray]:
+    # only a chunk's smallest keys can be among the smallest overall
+    if len(keys) <= keep:
+        return keys, rows
+    chosen = np.argpartition(keys, keep - 1)[:keep] if keep else np.arange(0)
+    return keys[chosen], rows[chosen]
 
 
 def _in_flight(client: Any) -> int:
@@ -200,12 +210,14 @@ def robustness_on_cluster(
     threads: int | None,
     counts: np.ndarray,
     reservoir: Any,
+    hard_reservoir: Any,
     bar: Any,
     flag: Any,
 ) -> tuple[int, np.ndarray, int, int, int]:
     """Run every chunk of a robustness study on the cluster and merge the summaries.
 
-    Adds to a copy of ``counts`` and offers the kept rows to ``reservoir``; returns
+    Adds to a copy of ``counts`` and offers the kept rows to ``reservoir`` (the hard-onset
+    ones also to ``hard_reservoir``); returns
     (samples done, status counts, first-loss-of-stability samples, and among those the
     subcritical and degenerate ones). When ``flag.stop`` is set (Ctrl-C) the outstanding
     futures are cancelled and the chunks finished so far make the partial result.
@@ -235,6 +247,7 @@ def robustness_on_cluster(
                     method,
                     threads,
                     reservoir.capacity,
+                    hard_reservoir.capacity,
                     retries=RETRIES,
                     pure=False,
                 )
@@ -258,6 +271,8 @@ def robustness_on_cluster(
                 degenerate += part["degenerate"]
                 if reservoir.capacity:
                     reservoir.offer(part["keys"], part["rows"])
+                if hard_reservoir.capacity:
+                    hard_reservoir.offer(part["hard_keys"], part["hard_rows"])
                 done += part["m"]
                 if bar is not None:
                     bar.update(part["m"])

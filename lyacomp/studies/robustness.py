@@ -41,6 +41,8 @@ from lyacomp.studies.uncertainty import (
 
 DEFAULT_CHUNK = 1 << 16
 DEFAULT_KEEP = 1_000_000
+#: hard-onset samples kept (a uniform random subset of them) for inspection
+DEFAULT_KEEP_HARD = 10_000
 DEFAULT_LEVELS = (0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99)
 SCALAR_OUTPUTS = ("l1", "critical_value", "omega")
 
@@ -216,6 +218,9 @@ class RobustnessResult:
     quantile_basis: int
     ranking: list[Driver]
     kept: dict[str, np.ndarray] = field(repr=False)
+    #: a uniform random subset (at most ``keep_hard``) of the first-loss samples with a
+    #: hard onset, columns as ``kept``: the designs to look at first
+    hard_samples: dict[str, np.ndarray] = field(repr=False, default_factory=dict)
 
     @property
     def probability_subcritical(self) -> float:
@@ -254,7 +259,22 @@ class RobustnessResult:
             },
             "quantile_basis": self.quantile_basis,
             "ranking": [d.to_dict() for d in self.ranking],
+            "hard_samples_kept": len(next(iter(self.hard_samples.values()), ())),
         }
+
+    def write_hard_samples(self, path: str | Path) -> int:
+        """Write ``hard_samples`` to ``path`` (.csv or .npz, the layout of ``save``);
+        returns the number of rows written."""
+        columns = list(self.hard_samples)
+        rows = np.column_stack([self.hard_samples[c] for c in columns])
+        store = open_store(path, columns, len(self.uncertain), _status_labels())
+        try:
+            store.write(rows, np.zeros(len(rows), dtype=np.int32))
+        except BaseException:
+            store.abort()
+            raise
+        store.close()
+        return len(rows)
 
     def summary(self) -> str:
         """Human-readable report."""
@@ -284,6 +304,12 @@ class RobustnessResult:
             )
         if self.degenerate:
             lines.append(f"  degenerate (l1 = 0 exactly): {self.degenerate}")
+        kept_hard = len(next(iter(self.hard_samples.values()), ()))
+        if kept_hard:
+            lines.append(
+                f"  hard-onset samples kept for inspection: {kept_hard}"
+                + (" (all of them)" if kept_hard == self.subcritical else " (a random subset)")
+            )
         not_ok = {k: v for k, v in self.status_counts.items() if k != "ok" and v}
         lines.append(
             f"No usable Hopf point: {self.samples - self.ok} samples"
@@ -422,11 +448,13 @@ def evaluate_chunk(
     m: int,
     method: str,
     threads: int | None,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray, dict[str, int]]:
-    """Draw and evaluate the ``m`` samples of chunk ``chunk``: keys, block, status, tallies.
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, int]]:
+    """Draw and evaluate the ``m`` samples of chunk ``chunk``: keys, block, status, the
+    mask of hard onsets, tallies.
 
     The tallies count the samples whose Hopf point is a first loss of stability
-    (``first_loss``) and, among them, the hard and degenerate onsets.
+    (``first_loss``) and, among them, the hard and degenerate onsets; the mask marks
+    the hard ones (first loss of stability, subcritical).
 
     A pure function of its arguments (the stream is keyed by ``(seed, chunk)``), so the
     local loop and a cluster worker compute the same bits.
@@ -440,12 +468,13 @@ def evaluate_chunk(
     status = np.asarray(batch.status)
     crit = np.asarray(batch.criticality)
     first = (status == 0) & first_loss_of(batch)
+    hard = first & (crit == Criticality.SUBCRITICAL)
     tallies = {
         "first_loss": int(np.count_nonzero(first)),
-        "subcritical": int(np.count_nonzero(first & (crit == Criticality.SUBCRITICAL))),
+        "subcritical": int(np.count_nonzero(hard)),
         "degenerate": int(np.count_nonzero(first & (crit == Criticality.DEGENERATE))),
     }
-    return keys, block, status, tallies
+    return keys, block, status, hard, tallies
 
 
 def run_robustness(
@@ -459,6 +488,7 @@ def run_robustness(
     threads: int | None = None,
     chunk_size: int = DEFAULT_CHUNK,
     keep: int = DEFAULT_KEEP,
+    keep_hard: int = DEFAULT_KEEP_HARD,
     quantile_levels: Sequence[float] = DEFAULT_LEVELS,
     confidence: float = 0.95,
     progress: bool | None = None,
@@ -472,13 +502,16 @@ def run_robustness(
     a normal's mean). The bifurcation parameter's value only seeds the search for
     the critical value. ``progress`` None shows a bar only on a terminal. Ctrl-C
     stops after the current chunk and returns what was evaluated
-    (``interrupted`` is then True). ``save`` (.csv or .npz) writes every sample.
+    (``interrupted`` is then True). ``save`` (.csv or .npz) writes every sample;
+    ``keep_hard`` hard-onset samples (a uniform random subset) come back in any case,
+    as ``hard_samples``.
     ``client`` (a ``distributed.Client``) runs the chunks on a Dask cluster with the
     same result, bit for bit; ``save`` is then not available (only summaries travel).
     """
     samples = _check_count(samples, "samples", 1)
     chunk_size = _check_count(chunk_size, "chunk_size", 1)
     keep = _check_count(keep, "keep", 0)
+    keep_hard = _check_count(keep_hard, "keep_hard", 0)
     if method not in METHODS:
         raise StudyError(f"sampling method must be one of {', '.join(METHODS)}; got {method!r}")
     levels = [float(q) for q in quantile_levels]
@@ -497,6 +530,7 @@ def run_robustness(
     base = {k: v for k, v in fixed.items() if k not in spec.names}
 
     reservoir = _Reservoir(min(keep, samples), len(columns))
+    hard_reservoir = _Reservoir(min(keep_hard, samples), len(columns))
     counts = np.zeros(max(labels) + 1, dtype=np.int64)
     done = subcritical = degenerate = n_first = 0
     store = open_store(save, columns, spec.dimension, labels) if save is not None else None
@@ -519,6 +553,7 @@ def run_robustness(
                     threads,
                     counts,
                     reservoir,
+                    hard_reservoir,
                     bar,
                     flag,
                 )
@@ -529,7 +564,7 @@ def run_robustness(
                     stopped = True
                     break
                 m = min(chunk_size, samples - start)
-                keys, block, status, tallies = evaluate_chunk(
+                keys, block, status, hard, tallies = evaluate_chunk(
                     ev, spec, base, seed, chunk, m, method, threads
                 )
                 ok = status == 0
@@ -541,6 +576,8 @@ def run_robustness(
                 degenerate += tallies["degenerate"]
                 if reservoir.capacity:
                     reservoir.offer(keys[ok], block[ok])
+                if hard_reservoir.capacity:
+                    hard_reservoir.offer(keys[hard], block[hard])
                 done += m
                 if bar is not None:
                     bar.update(m)
@@ -556,6 +593,8 @@ def run_robustness(
 
     kept_rows = reservoir.contents()
     kept = {name: kept_rows[:, j].copy() for j, name in enumerate(columns)}
+    hard_rows = hard_reservoir.contents()
+    hard_samples = {name: hard_rows[:, j].copy() for j, name in enumerate(columns)}
     n_ok = int(counts[0])
     quantiles = _quantiles(kept, columns[spec.dimension :], levels)
     ranking = rank_drivers(kept_rows[:, : spec.dimension], kept["l1"], spec.names)
@@ -582,6 +621,7 @@ def run_robustness(
         quantile_basis=len(kept_rows),
         ranking=ranking,
         kept=kept,
+        hard_samples=hard_samples,
     )
 
 

@@ -99,6 +99,9 @@ def test_robustness_on_cluster_is_bit_identical(ev, client):
     assert dump(remote) == dump(local)
     for name, values in local.kept.items():
         assert np.array_equal(remote.kept[name], values, equal_nan=True), name
+    for name, values in local.hard_samples.items():
+        assert np.array_equal(remote.hard_samples[name], values, equal_nan=True), name
+    assert len(local.hard_samples["s"]) == local.subcritical > 0
     # a study that must fail if chunks were dropped or counted twice
     assert remote.samples == 6000 and sum(remote.status_counts.values()) == 6000
 

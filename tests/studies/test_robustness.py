@@ -369,6 +369,33 @@ def test_saved_samples_csv_and_npz(normal_form, tmp_path):
     assert sorted(p.name for p in tmp_path.iterdir()) == ["draws.csv", "draws.npz"]
 
 
+def test_hard_samples_are_the_hard_rows_of_the_saved_samples(normal_form, tmp_path):
+    # l1 = 2 s (see NORMAL_FORM): a sample is hard exactly when s > 0 (definition of a
+    # subcritical onset, common practice, no source). All hard rows fit under keep_hard,
+    # so they must equal the saved rows with l1 > 0, and a smaller cap keeps a subset.
+    table = {"s": {"distribution": "normal", "mean": -0.5, "sd": 1.0}}
+    npz_path, hard_path = tmp_path / "draws.npz", tmp_path / "hard.csv"
+    full = run_robustness(
+        normal_form, 4000, seed=3, uncertainty=table, chunk_size=900, save=npz_path
+    )
+    z = np.load(npz_path)
+    hard = z["l1"] > 0
+    assert len(full.hard_samples["s"]) == full.subcritical == int(hard.sum()) > 0
+    assert np.array_equal(np.sort(full.hard_samples["s"]), np.sort(z["s"][hard]))
+    assert full.to_dict()["hard_samples_kept"] == full.subcritical
+    assert full.write_hard_samples(hard_path) == full.subcritical
+    rows = np.genfromtxt(hard_path, delimiter=",", names=True, dtype=None, encoding="utf-8")
+    assert np.array_equal(np.sort(rows["s"]), np.sort(z["s"][hard]))
+    capped = run_robustness(
+        normal_form, 4000, seed=3, uncertainty=table, chunk_size=900, keep_hard=50
+    )
+    assert len(capped.hard_samples["s"]) == 50
+    assert np.isin(capped.hard_samples["s"], z["s"][hard]).all()
+    assert "hard-onset samples kept for inspection: 50 (a random subset)" in capped.summary()
+    with pytest.raises(StudyError, match="keep_hard"):
+        run_robustness(normal_form, 10, seed=1, uncertainty=table, keep_hard=-1)
+
+
 def test_ctrl_c_returns_the_partial_result(normal_form):
     calls = []
 
