@@ -148,6 +148,24 @@ def test_killed_worker_leaves_the_result_unchanged(ev, client):
     assert dump(out["result"]) == dump(local)
 
 
+def test_design_statistic_on_cluster_is_bit_identical(ev, client):
+    from lyacomp.studies.cluster import BATCH_BLOCK, batch_on_cluster
+    from lyacomp.studies.optimize import DesignSpace, RobustStatistic
+
+    space = DesignSpace(ev, ["a", "b"], {"a": 0.3, "b": -0.2})
+    table = {"s": TABLE["s"]}
+    # more samples per stencil than one cluster block, so several tasks make one call
+    kw = dict(samples=BATCH_BLOCK // 2 + 17, seed=8, uncertainty=table, smoothing=0.05)
+    local = RobustStatistic(space, **kw)
+    remote = RobustStatistic(space, client=client, **kw)
+    x = np.array([0.3, -0.2])
+    assert remote(x) == local(x)
+    assert np.array_equal(remote.jac(x), local.jac(x))
+    assert 0.0 < local(x) < 1.0
+    with pytest.raises(lyacomp.StudyError, match="input array"):
+        batch_on_cluster(client, ev, {"a": 0.1, "s": -0.1}, ("l1",))
+
+
 @pytest.mark.parametrize("option", [["--workers", "2"], ["--scheduler", "tcp://127.0.0.1:1"]])
 def test_without_dask_the_cluster_options_say_how_to_install_it(
     option, tmp_path, monkeypatch, capsys
