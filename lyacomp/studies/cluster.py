@@ -16,6 +16,7 @@ from __future__ import annotations
 import hashlib
 import math
 import pickle
+import sys
 import threading
 from collections.abc import Iterator, Mapping
 from contextlib import contextmanager
@@ -327,11 +328,31 @@ def map_on_cluster(
         )
         for first in range(0, y.n, rows)
     ]
+    distributed = require_distributed()
+    bar = _rows_bar(y.n)
+    parts: list[Any] = [None] * len(futures)
+    index = {future.key: k for k, future in enumerate(futures)}
     try:
-        parts = client.gather(futures)
+        for future in distributed.as_completed(futures):
+            parts[index[future.key]] = future.result()
+            if bar is not None:
+                bar.update(len(parts[index[future.key]]["status"]))
     finally:
         client.cancel(futures)
+        if bar is not None:
+            bar.close()
     return {k: np.concatenate([p[k] for p in parts]) for k in parts[0]}
+
+
+def _rows_bar(rows: int) -> Any:
+    # progress from the futures, on a terminal only (like the local map and robustness)
+    if not sys.stderr.isatty():
+        return None
+    try:
+        from tqdm import tqdm
+    except ImportError:
+        return None
+    return tqdm(total=rows, desc="map rows (cluster)", unit="row", file=sys.stderr, leave=False)
 
 
 #: Samples evaluated per task by :func:`batch_on_cluster`.

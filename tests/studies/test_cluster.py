@@ -115,6 +115,27 @@ def test_map_on_cluster_is_bit_identical(ev, client):
         assert np.array_equal(getattr(remote, name), getattr(local, name), equal_nan=True), name
 
 
+def test_map_on_cluster_shows_progress_on_a_terminal(ev, client, monkeypatch):
+    pytest.importorskip("tqdm")
+    import io
+
+    import lyacomp.studies.cluster as cluster_mod
+
+    class Terminal(io.StringIO):
+        def isatty(self):
+            return True
+
+    term, bars = Terminal(), []
+    make_bar = cluster_mod._rows_bar
+    monkeypatch.setattr(cluster_mod.sys, "stderr", term)
+    monkeypatch.setattr(
+        cluster_mod, "_rows_bar", lambda rows: bars.append(make_bar(rows)) or bars[-1]
+    )
+    parameter_map(ev, Axis.parse("a:-1:1:5"), Axis.parse("b:-1:1:4"), client=client)
+    assert "map rows (cluster)" in term.getvalue()
+    assert len(bars) == 1 and bars[0].n == bars[0].total == 4
+
+
 def test_killed_worker_leaves_the_result_unchanged(ev, client):
     local = run_robustness(
         ev, 20_000, seed=5, uncertainty=TABLE, chunk_size=250, keep=3000, progress=False
