@@ -115,6 +115,30 @@ def test_map_on_cluster_is_bit_identical(ev, client):
         assert np.array_equal(getattr(remote, name), getattr(local, name), equal_nan=True), name
 
 
+def test_ctrl_c_on_cluster_cancels_and_reports_the_partial_result(ev, client):
+    def interrupt_when_busy():
+        deadline = time.monotonic() + 30
+        while time.monotonic() < deadline and not any(client.processing().values()):
+            time.sleep(0.01)
+        time.sleep(0.5)
+        os.kill(os.getpid(), signal.SIGINT)
+
+    study(ev, client=client)  # every worker has the evaluator loaded before the clock runs
+    before = signal.getsignal(signal.SIGINT)
+    threading.Thread(target=interrupt_when_busy, daemon=True).start()
+    result = run_robustness(
+        ev, 400_000, seed=9, uncertainty=TABLE, chunk_size=500, progress=False, client=client
+    )
+    assert result.interrupted and 0 < result.samples < result.requested
+    assert result.samples % 500 == 0 and sum(result.status_counts.values()) == result.samples
+    assert "INTERRUPTED" in result.summary()
+    assert signal.getsignal(signal.SIGINT) is before
+    deadline = time.monotonic() + 30  # the outstanding futures were cancelled
+    while time.monotonic() < deadline and any(client.processing().values()):
+        time.sleep(0.05)
+    assert not any(client.processing().values())
+
+
 def test_map_on_cluster_shows_progress_on_a_terminal(ev, client, monkeypatch):
     pytest.importorskip("tqdm")
     import io
