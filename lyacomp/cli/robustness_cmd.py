@@ -74,6 +74,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         " reproducibility recipe together with the seed",
     )
     parser.add_argument(
+        "--branch-steps",
+        type=int,
+        default=4,
+        metavar="K",
+        help="continuation steps from the nominal Hopf point that tell whether each sample's"
+        " Hopf point is on the nominal branch (default 4; each costs one more evaluation"
+        " per sample; 0 skips the check)",
+    )
+    parser.add_argument(
         "--json", action="store_true", help="print one JSON object instead of the text summary"
     )
     parser.add_argument(
@@ -110,6 +119,7 @@ def run(args: argparse.Namespace) -> int:
             chunk_size=args.chunk_size,
             save=args.save,
             client=client,
+            branch_steps=args.branch_steps,
         )
     if args.plot:
         from lyacomp.studies.plots_robustness import plot_robustness

@@ -154,12 +154,15 @@ def _robustness_task(
     method: str,
     threads: int | None,
     keep: int,
+    branch_steps: int,
 ) -> dict[str, Any]:
     from lyacomp.studies.robustness import evaluate_chunk
 
     ev = _worker_evaluator(payload, digest)
     threads = _worker_threads(threads)
-    keys, block, status, tallies = evaluate_chunk(ev, spec, base, seed, chunk, m, method, threads)
+    keys, block, status, tallies = evaluate_chunk(
+        ev, spec, base, seed, chunk, m, method, threads, branch_steps
+    )
     ok = status == 0
     keys, block = keys[ok], block[ok]
     if len(keys) > keep:
@@ -202,13 +205,15 @@ def robustness_on_cluster(
     reservoir: Any,
     bar: Any,
     flag: Any,
-) -> tuple[int, np.ndarray, int, int, int]:
+    branch_steps: int,
+) -> tuple[int, np.ndarray, int, int, int, int]:
     """Run every chunk of a robustness study on the cluster and merge the summaries.
 
     Adds to a copy of ``counts`` and offers the kept rows to ``reservoir``; returns
     (samples done, status counts, first-loss-of-stability samples, and among those the
-    subcritical and degenerate ones). When ``flag.stop`` is set (Ctrl-C) the outstanding
-    futures are cancelled and the chunks finished so far make the partial result.
+    subcritical and degenerate ones, and the samples off the nominal branch). When
+    ``flag.stop`` is set (Ctrl-C) the outstanding futures are cancelled and the chunks
+    finished so far make the partial result.
     """
     from lyacomp.studies.robustness import add_counts
 
@@ -217,7 +222,7 @@ def robustness_on_cluster(
     starts = iter(enumerate(range(0, samples, chunk_size)))
     pending: set = set()
     counts = counts.copy()
-    done = n_first = subcritical = degenerate = 0
+    done = n_first = subcritical = degenerate = off_branch = 0
 
     def submit_more() -> None:
         for chunk, start in starts:
@@ -235,6 +240,7 @@ def robustness_on_cluster(
                     method,
                     threads,
                     reservoir.capacity,
+                    branch_steps,
                     retries=RETRIES,
                     pure=False,
                 )
@@ -256,6 +262,7 @@ def robustness_on_cluster(
                 n_first += part["first_loss"]
                 subcritical += part["subcritical"]
                 degenerate += part["degenerate"]
+                off_branch += part["off_branch"]
                 if reservoir.capacity:
                     reservoir.offer(part["keys"], part["rows"])
                 done += part["m"]
@@ -266,7 +273,7 @@ def robustness_on_cluster(
     finally:
         if pending:
             client.cancel(list(pending))
-    return done, counts, n_first, subcritical, degenerate
+    return done, counts, n_first, subcritical, degenerate, off_branch
 
 
 def _map_task(
