@@ -93,3 +93,26 @@ def test_caution_once_and_critical_value_label(tmp_path, capsys):
     assert out.count("caution") == 1
     assert "critical value of g1: g1_c = 0.3" in out
     assert "g10" not in out
+
+
+@pytest.mark.parametrize(
+    "args",
+    [
+        ["robustness", "examples/belt_friction_pad.toml", "--samples", "200", "--seed", "1"],
+        ["map", "examples/duct_flap.toml", "--line", "a:0.2:1.0:11"],
+        ["eval", "examples/duct_flap.toml"],
+    ],
+    ids=["robustness", "map-line", "eval"],
+)
+def test_caution_once_per_command(args, capsys):
+    assert main(args) == 0
+    captured = capsys.readouterr()
+    assert (captured.out + captured.err).lower().count("caution") == 1
+
+
+def test_each_failure_line_once(tmp_path, capsys):
+    assert _run(tmp_path, DAMPED) == 1
+    captured = capsys.readouterr()
+    lines = [line for line in captured.err.splitlines() if line.strip()]
+    assert len(lines) == len(set(lines)) == 2
+    assert captured.out.count("no_convergence") == 1

@@ -168,6 +168,54 @@ def test_unstable_count_matches_numpy(n):
     assert list(b.first_loss) == [e == 0 for e in expected]
 
 
+@pytest.mark.parametrize("n", [4, 7])
+def test_eigenvector_with_zero_components(n):
+    """Hopf points whose critical eigenvector has components that are zero in exact
+    arithmetic (the pair's plane is orthogonal to some coordinate axes), so that in
+    floating point they are rounding noise. Newton's step test once measured each such
+    component against its own noise-sized value and never converged (36 to 40 of 40
+    samples gave no_convergence); the eigenvector is now measured as a whole.
+
+    x' = (M + mu I) x - x_i^3 with M = Q D Q^T: Hopf point x = 0, mu = 0, omega = 2.
+    B vanishes at x = 0 (no quadratic terms), so the projection formula (Kuznetsov,
+    Elements of Applied Bifurcation Theory, 3rd ed. 2004, ch. 3) leaves
+    l1 = Re <p, C(q, q, conj q)> / (2 omega) with C(q, q, conj q)_i = -6 q_i |q_i|^2;
+    q, p come from numpy.linalg.eig (reference library).
+    """
+    rng = np.random.default_rng(20261202)
+    ev = _linear_cubic_model(n)
+    samples = 12
+    columns: dict[str, list[float]] = {k: [] for k in ev.parameters}
+    unstable, l1 = [], []
+    for _ in range(samples):
+        basis = rng.normal(size=(n, n))
+        basis[rng.choice(n, size=max(1, n // 3), replace=False), :2] = 0.0
+        q, _ = np.linalg.qr(basis)
+        reals = rng.uniform(0.1, 1.0, size=n - 2) * rng.choice([-1.0, 1.0], size=n - 2)
+        d = np.zeros((n, n))
+        d[0, 1], d[1, 0] = -2.0, 2.0
+        d[2:, 2:] = np.diag(reals)
+        m = q @ d @ q.T
+        for i in range(n):
+            for j in range(n):
+                columns[f"m{i}_{j}"].append(m[i, j])
+        columns["mu"].append(0.0)
+        unstable.append(int((reals > 0).sum()))
+        lam, right = np.linalg.eig(m)
+        k = int(np.argmin(np.abs(lam - 2j)))
+        qv = right[:, k] / np.linalg.norm(right[:, k])
+        lam_t, left = np.linalg.eig(m.T)
+        pv = left[:, int(np.argmin(np.abs(lam_t + 2j)))]
+        pv = pv / np.conj(np.vdot(pv, qv))  # <p, q> = 1 with <u, v> = sum conj(u) v
+        l1.append(float(np.real(np.vdot(pv, -6.0 * qv * np.abs(qv) ** 2)) / (2 * 2.0)))
+    b = ev.batch({k: np.array(v) for k, v in columns.items()})
+    assert b.ok.all(), b.status_counts()
+    assert list(b.unstable_count) == unstable
+    assert np.allclose(b.critical_value, 0.0, atol=1e-9)
+    assert np.allclose(b.omega, 2.0, rtol=1e-10)
+    assert np.allclose(b.l1, l1, rtol=1e-8)
+
+
 @pytest.mark.parametrize("extra_state", [False, True])
 def test_center_manifold_l1(extra_state):
     """x' = mu x - w y + a x z, y' = w x + mu y + a y z, z' = -lam z + b (x^2 + y^2).

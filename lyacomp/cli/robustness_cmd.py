@@ -74,6 +74,15 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         " reproducibility recipe together with the seed",
     )
     parser.add_argument(
+        "--branch-steps",
+        type=int,
+        default=4,
+        metavar="K",
+        help="continuation steps from the nominal Hopf point that tell whether each sample's"
+        " Hopf point is on the nominal branch (default 4; each costs one more evaluation"
+        " per sample; 0 skips the check)",
+    )
+    parser.add_argument(
         "--json", action="store_true", help="print one JSON object instead of the text summary"
     )
     parser.add_argument(
@@ -125,6 +134,7 @@ def run(args: argparse.Namespace) -> int:
             save=args.save,
             keep_hard=args.keep_hard,
             client=client,
+            branch_steps=args.branch_steps,
         )
     if args.hard_samples:
         result.write_hard_samples(args.hard_samples)

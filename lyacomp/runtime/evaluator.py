@@ -192,6 +192,7 @@ class Evaluator:
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
+        self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -280,6 +281,7 @@ class Evaluator:
         /,
         *,
         threads: int | None = None,
+        guess: Mapping[str, Any] | None = None,
         **values: Any,
     ) -> BatchResult:
         """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
@@ -290,11 +292,20 @@ class Evaluator:
         numpy arrays and scalars of real dtypes, sequences of these; complex, text, dates,
         object and masked arrays are refused. ``threads=None`` uses all cores. A keyword
         named ``threads`` is always the option: a parameter of that name goes in the mapping.
+
+        ``guess`` gives each sample its own starting point: arrays (or numbers) for states,
+        and for the bifurcation parameter, broadcast like the parameters. With state
+        guesses every sample starts from its own guesses (states not given keep the
+        evaluator's guesses), not from the nominal solution; studies pass a solved
+        neighbour's equilibrium and critical value to stay on its branch.
         """
         values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
         threads = self._threads(threads)
+        guesses = self._guess_arrays(guess)
+        if self.bifurcation is not None and self.bifurcation in (guess or {}):
+            values = {**values, self.bifurcation: guess[self.bifurcation]}
         arrays = [
             _real_array(values[name], f"parameter {name}")
             if name in values
@@ -302,9 +313,10 @@ class Evaluator:
             for name, nominal in zip(self.parameters, self._nominal)
         ]
         try:
-            shape = np.broadcast_shapes(*(a.shape for a in arrays))
+            shape = np.broadcast_shapes(*(a.shape for a in [*arrays, *guesses.values()]))
         except ValueError:
             shapes = {n: a.shape for n, a in zip(self.parameters, arrays)}
+            shapes.update({f"guess {n}": a.shape for n, a in guesses.items()})
             raise EvaluationError(f"parameter arrays do not broadcast together: {shapes}") from None
         count = math.prod(shape)
         columns, strides = [], []
@@ -352,20 +364,81 @@ class Evaluator:
                 [ffi.cast("double *", ffi.from_buffer(c)) for c in columns] or [ffi.NULL],
             )
             c_strides = ffi.new("long[]", strides or [0])
-            start = ffi.NULL if self.bifurcation in values else self._start
-            self._evaluate_batch(
-                count,
-                c_params,
-                c_strides,
-                self._guess,
-                start,
-                self._options,
-                threads,
-                c_out,
-            )
+            if guesses:
+                state_columns, state_strides = self._guess_columns(guesses, shape)
+                c_guesses = ffi.new(
+                    "double *[]",
+                    [ffi.cast("double *", ffi.from_buffer(c)) for c in state_columns],
+                )
+                self._evaluate_batch_from(
+                    count,
+                    c_params,
+                    c_strides,
+                    c_guesses,
+                    ffi.new("long[]", state_strides),
+                    self._options,
+                    threads,
+                    c_out,
+                )
+            else:
+                start = ffi.NULL if self.bifurcation in values else self._start
+                self._evaluate_batch(
+                    count,
+                    c_params,
+                    c_strides,
+                    self._guess,
+                    start,
+                    self._options,
+                    threads,
+                    c_out,
+                )
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
         return BatchResult(states=self.states, **vector, **matrix)
+
+    def _guess_arrays(self, guess: Mapping[str, Any] | None) -> dict[str, np.ndarray]:
+        """The per-sample state guesses of ``batch`` as float arrays (checked names and
+        values); the bifurcation parameter's guess is handled as its value."""
+        if guess is None:
+            return {}
+        if not isinstance(guess, Mapping):
+            raise EvaluationError(
+                f"guess is given as a mapping of name -> values, got {_describe(guess)}"
+            )
+        allowed = set(self.states) | ({self.bifurcation} if self.bifurcation else set())
+        unknown = sorted(set(guess) - allowed)
+        if unknown:
+            also = f" or the bifurcation parameter {self.bifurcation!r}" if self.bifurcation else ""
+            raise EvaluationError(
+                f"guess: unknown name(s) {unknown}; give states {list(self.states)}{also}"
+            )
+        out = {}
+        for name in self.states:
+            if name in guess:
+                array = _real_array(guess[name], f"guess for {name}")
+                if not np.isfinite(array).all():
+                    raise EvaluationError(f"guess for {name} must be finite everywhere")
+                out[name] = array
+        return out
+
+    def _guess_columns(
+        self, guesses: Mapping[str, np.ndarray], shape: tuple[int, ...]
+    ) -> tuple[list[np.ndarray], list[int]]:
+        """One contiguous column (stride 1) or one value (stride 0) per state."""
+        columns, strides = [], []
+        for name in self.states:
+            if name not in guesses:
+                columns.append(np.array([self.state_guess[name]]))
+                strides.append(0)
+            elif guesses[name].ndim == 0:
+                columns.append(guesses[name].reshape(1))
+                strides.append(0)
+            else:
+                columns.append(
+                    np.ascontiguousarray(np.broadcast_to(guesses[name], shape)).reshape(-1)
+                )
+                strides.append(1)
+        return columns, strides
 
     def _threads(self, threads: Any) -> int:
         """The thread count for C (0: all cores), or an EvaluationError."""

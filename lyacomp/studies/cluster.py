@@ -157,13 +157,14 @@ def _robustness_task(
     threads: int | None,
     keep: int,
     keep_hard: int,
+    branch_steps: int,
 ) -> dict[str, Any]:
     from lyacomp.studies.robustness import evaluate_chunk
 
     ev = _worker_evaluator(payload, digest)
     threads = _worker_threads(threads)
     keys, block, status, hard, tallies = evaluate_chunk(
-        ev, spec, base, seed, chunk, m, method, threads
+        ev, spec, base, seed, chunk, m, method, threads, branch_steps
     )
     ok_keys, ok_rows = _smallest_keys(keys[status == 0], block[status == 0], keep)
     hard_keys, hard_rows = _smallest_keys(keys[hard], block[hard], keep_hard)
@@ -214,14 +215,16 @@ def robustness_on_cluster(
     hard_reservoir: Any,
     bar: Any,
     flag: Any,
-) -> tuple[int, np.ndarray, int, int, int]:
+    branch_steps: int,
+) -> tuple[int, np.ndarray, int, int, int, int]:
     """Run every chunk of a robustness study on the cluster and merge the summaries.
 
     Adds to a copy of ``counts`` and offers the kept rows to ``reservoir`` (the hard-onset
     ones also to ``hard_reservoir``); returns
     (samples done, status counts, first-loss-of-stability samples, and among those the
-    subcritical and degenerate ones). When ``flag.stop`` is set (Ctrl-C) the outstanding
-    futures are cancelled and the chunks finished so far make the partial result.
+    subcritical and degenerate ones, and the samples off the nominal branch). When
+    ``flag.stop`` is set (Ctrl-C) the outstanding futures are cancelled and the chunks
+    finished so far make the partial result.
     """
     from lyacomp.studies.robustness import add_counts
 
@@ -230,7 +233,7 @@ def robustness_on_cluster(
     starts = iter(enumerate(range(0, samples, chunk_size)))
     pending: set = set()
     counts = counts.copy()
-    done = n_first = subcritical = degenerate = 0
+    done = n_first = subcritical = degenerate = off_branch = 0
 
     def submit_more() -> None:
         for chunk, start in starts:
@@ -249,6 +252,7 @@ def robustness_on_cluster(
                     threads,
                     reservoir.capacity,
                     hard_reservoir.capacity,
+                    branch_steps,
                     retries=RETRIES,
                     pure=False,
                 )
@@ -270,6 +274,7 @@ def robustness_on_cluster(
                 n_first += part["first_loss"]
                 subcritical += part["subcritical"]
                 degenerate += part["degenerate"]
+                off_branch += part["off_branch"]
                 if reservoir.capacity:
                     reservoir.offer(part["keys"], part["rows"])
                 if hard_reservoir.capacity:
@@ -282,7 +287,7 @@ def robustness_on_cluster(
     finally:
         if pending:
             client.cancel(list(pending))
-    return done, counts, n_first, subcritical, degenerate
+    return done, counts, n_first, subcritical, degenerate, off_branch
 
 
 def _map_task(

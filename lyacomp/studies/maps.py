@@ -10,9 +10,10 @@ Grid points where l1 is exactly zero (or degenerate within the tolerance) are ze
 their own right: they are reported as located points, never skipped by the sign test.
 
 Branch continuity: after the first pass, the grid is swept row by row and every point
-is solved again from its solved neighbour in the previous row (that neighbour's
-critical value as the starting guess of the bifurcation parameter), so the Hopf branch
-is followed across the plane. Points whose critical value still jumps against their
+is solved again from a solved neighbour (the one in the previous row, or beside it in
+the same row): that neighbour's equilibrium and critical value are its starting point,
+so the Hopf branch (equilibrium and critical value together) is followed across the
+plane. Points whose critical value still jumps against their
 neighbours far more than the grid spacing explains are marked ``BRANCH_CHANGE``.
 """
 
@@ -400,8 +401,9 @@ def parameter_map(
     degenerate points are on the curve themselves).
 
     ``fixed`` sets other parameters (default: nominal values). With ``follow_branch``
-    each row is solved again from the previous row's critical values (one batch call per
-    row), so the branch found at the first row is followed across the plane; points
+    each point is solved again from a solved neighbour's equilibrium and critical value
+    (one batch call per row), so the branch found at the first row is followed across
+    the plane; points
     where the critical value still jumps are classed ``BRANCH_CHANGE``.
     ``client`` (a
     ``distributed.Client``) evaluates blocks of grid rows on a Dask cluster, with the same
@@ -450,7 +452,33 @@ def _grids(batch: Any, shape: tuple[int, ...]) -> dict[str, np.ndarray]:
     grids = {k: np.array(getattr(batch, k)).reshape(shape) for k in _GRID_KEYS}
     grids["l1"] = grids["l1"].astype(float)
     grids["first_loss"] = first_loss_of(batch).reshape(shape)
+    equilibrium = np.asarray(batch.equilibrium, float)
+    grids["equilibrium"] = equilibrium.reshape(shape + equilibrium.shape[-1:])
     return grids
+
+
+def _from_neighbours(
+    ev: Any,
+    values: Mapping[str, Any],
+    equilibrium: np.ndarray,
+    critical_value: np.ndarray,
+    threads: int | None,
+) -> dict[str, np.ndarray]:
+    """Solve points from solved neighbours: each starts from its neighbour's equilibrium
+    (rows of ``equilibrium``) and critical value."""
+    guess: dict[str, Any] = {s: equilibrium[:, k] for k, s in enumerate(ev.states)}
+    guess[ev.bifurcation] = critical_value
+    batch = ev.batch(dict(values), guess=guess, threads=threads)
+    return _grids(batch, (len(critical_value),))
+
+
+def _take(grids: dict[str, np.ndarray], where: tuple[Any, ...], row: dict[str, np.ndarray]):
+    """Keep the neighbour-started solutions that are ok (in place)."""
+    ok = row["status"] == Status.OK
+    for key, values in row.items():
+        if key in grids:
+            target = tuple(np.asarray(w)[ok] if np.ndim(w) else w for w in where)
+            grids[key][target] = values[ok]
 
 
 def _follow_rows(
@@ -461,8 +489,35 @@ def _follow_rows(
     grids: dict[str, np.ndarray],
     threads: int | None,
 ) -> None:
-    """Re-solve row j from row j-1's critical values (in place); a warm-started solution
-    replaces the first-pass one wherever it is ok. A progress bar shows on a terminal."""
+    """Follow the Hopf branch across the grid from solved neighbours (in place): along the
+    first row from its first solved point, point by point; then row j from row j - 1
+    (one batch call per row), and a point whose upper neighbour is unsolved from its
+    left neighbour. Each point starts from the neighbour's equilibrium and critical value;
+    a neighbour-started solution replaces the first-pass one wherever it is ok. A
+    progress bar shows on a terminal."""
+    ok = grids["status"] == Status.OK
+
+    def along_row(j: int, columns: Any) -> None:
+        for i in columns:
+            left = i - 1 if i > 0 and ok[j, i - 1] else None
+            right = i + 1 if i + 1 < x.n and ok[j, i + 1] else None
+            near = left if left is not None else right
+            if near is None:
+                continue
+            row = _from_neighbours(
+                ev,
+                {**fixed, x.name: x.values[i : i + 1], y.name: float(y.values[j])},
+                grids["equilibrium"][j, near : near + 1],
+                grids["critical_value"][j, near : near + 1],
+                threads=1,
+            )
+            _take(grids, (j, np.array([i])), row)
+            ok[j, i] = ok[j, i] or bool(row["status"][0] == Status.OK)
+
+    solved = np.flatnonzero(ok[0])
+    if solved.size:
+        along_row(0, range(solved[0] + 1, x.n))
+        along_row(0, range(solved[0] - 1, -1, -1))
     rows: Any = range(1, y.n)
     if sys.stderr.isatty() and y.n > 50:
         try:
@@ -472,24 +527,18 @@ def _follow_rows(
         except ImportError:
             pass
     for j in rows:
-        guess = grids["critical_value"][j - 1]
-        seeded = np.flatnonzero(np.isfinite(guess))
-        if not seeded.size:
-            continue
-        batch = ev.batch(
-            {
-                **fixed,
-                x.name: x.values[seeded],
-                y.name: float(y.values[j]),
-                ev.bifurcation: guess[seeded],
-            },
-            threads=threads,
-        )
-        row = _grids(batch, (seeded.size,))
-        take = row["status"] == Status.OK
-        for key, values in row.items():
-            if key in grids:
-                grids[key][j, seeded[take]] = values[take]
+        seeded = np.flatnonzero(ok[j - 1])
+        if seeded.size:
+            row = _from_neighbours(
+                ev,
+                {**fixed, x.name: x.values[seeded], y.name: float(y.values[j])},
+                grids["equilibrium"][j - 1, seeded],
+                grids["critical_value"][j - 1, seeded],
+                threads,
+            )
+            _take(grids, (j, seeded), row)
+            ok[j, seeded] |= row["status"] == Status.OK
+        along_row(j, np.flatnonzero(~ok[j - 1]))
 
 
 def _locate_zero_curve(ev: Any, pmap: ParameterMap, criticality: np.ndarray) -> None:

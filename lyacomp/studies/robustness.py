@@ -46,6 +46,12 @@ DEFAULT_KEEP_HARD = 10_000
 DEFAULT_LEVELS = (0.01, 0.05, 0.25, 0.5, 0.75, 0.95, 0.99)
 SCALAR_OUTPUTS = ("l1", "critical_value", "omega")
 
+#: Steps of the continuation from the nominal Hopf point that checks each sample's branch.
+BRANCH_STEPS = 4
+#: The continued and the directly solved Hopf point are the same point when their critical
+#: values and frequencies agree to this relative accuracy (both are converged to ~1e-12).
+BRANCH_RTOL = 1e-6
+
 
 def wilson_interval(successes: int, trials: int, confidence: float = 0.95) -> tuple[float, float]:
     """Wilson score interval for a binomial proportion.
@@ -212,6 +218,11 @@ class RobustnessResult:
     unstable_equilibrium: int
     subcritical: int
     degenerate: int
+    #: ok samples whose Hopf point is not reached by continuation from the nominal one
+    #: (another Hopf branch; see ``off_nominal_branch``); counted, not excluded
+    off_branch: int
+    #: continuation steps of that check (0: not checked)
+    branch_steps: int
     confidence: float
     interval: tuple[float, float]
     quantiles: dict[str, dict[str, float]]
@@ -249,6 +260,8 @@ class RobustnessResult:
             "unstable_equilibrium": self.unstable_equilibrium,
             "subcritical": self.subcritical,
             "degenerate": self.degenerate,
+            "off_branch": self.off_branch,
+            "branch_steps": self.branch_steps,
             "probability_subcritical": _jsonable(self.probability_subcritical),
             "confidence": self.confidence,
             "interval": [self.interval[0], self.interval[1]],
@@ -309,6 +322,12 @@ class RobustnessResult:
             lines.append(
                 f"  hard-onset samples kept for inspection: {kept_hard}"
                 + (" (all of them)" if kept_hard == self.subcritical else " (a random subset)")
+            )
+        if self.branch_steps:
+            lines.append(
+                f"  Hopf point not on the nominal branch (a continuation from the nominal"
+                f" point in {self.branch_steps} steps ends elsewhere; counted above):"
+                f" {self.off_branch}"
             )
         not_ok = {k: v for k, v in self.status_counts.items() if k != "ok" and v}
         lines.append(
@@ -448,12 +467,15 @@ def evaluate_chunk(
     m: int,
     method: str,
     threads: int | None,
+    branch_steps: int = BRANCH_STEPS,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, int]]:
     """Draw and evaluate the ``m`` samples of chunk ``chunk``: keys, block, status, the
     mask of hard onsets, tallies.
 
     The tallies count the samples whose Hopf point is a first loss of stability
-    (``first_loss``) and, among them, the hard and degenerate onsets; the mask marks
+    (``first_loss``) and, among them, the hard and degenerate onsets, and the ok samples
+    whose Hopf point is not on the nominal branch (``off_branch``, see
+    :func:`off_nominal_branch`; ``branch_steps`` 0 skips that check); the mask marks
     the hard ones (first loss of stability, subcritical).
 
     A pure function of its arguments (the stream is keyed by ``(seed, chunk)``), so the
@@ -473,8 +495,72 @@ def evaluate_chunk(
         "first_loss": int(np.count_nonzero(first)),
         "subcritical": int(np.count_nonzero(hard)),
         "degenerate": int(np.count_nonzero(first & (crit == Criticality.DEGENERATE))),
+        "off_branch": int(
+            np.count_nonzero(
+                off_nominal_branch(ev, spec, base, values, batch, branch_steps, threads)
+            )
+        ),
     }
     return keys, block, status, hard, tallies
+
+
+def off_nominal_branch(
+    ev: Any,
+    spec: UncertaintySpec,
+    base: Mapping[str, float],
+    values: np.ndarray,
+    batch: Any,
+    steps: int = BRANCH_STEPS,
+    threads: int | None = None,
+) -> np.ndarray:
+    """Which ok samples have a Hopf point that is not on the nominal Hopf branch.
+
+    The test: follow the Hopf point from the nominal parameters to each sample's along the
+    straight line between them, in ``steps`` equal steps, every step started from the
+    previous step's equilibrium and critical value. A sample is on the nominal branch when
+    that continuation arrives and meets the Hopf point the sample's own solve found
+    (critical value and frequency equal to ``BRANCH_RTOL``); otherwise it is marked (another
+    Hopf point, or a branch that ends or turns back between nominal and sample). Nominal
+    values are ``base`` where given, else the model's. Without a bifurcation parameter,
+    with ``steps`` 0, or when the nominal point has no Hopf point, nothing is marked.
+    """
+    ok = np.asarray(batch.status) == Status.OK
+    marked = np.zeros(ok.shape, bool)
+    if steps <= 0 or ev.bifurcation is None or not ok.any():
+        return marked
+    centre = np.array([float(base.get(n, ev.nominal[n])) for n in spec.names])
+    nominal = ev.batch({**base, **{n: centre[j : j + 1] for j, n in enumerate(spec.names)}})
+    if not nominal.ok[0]:
+        return marked
+    rows = np.flatnonzero(ok)
+    eq = np.repeat(np.asarray(nominal.equilibrium, float).reshape(1, -1), rows.size, axis=0)
+    mu0 = np.full(rows.size, float(nominal.critical_value[0]))
+    omega = np.full(rows.size, float(nominal.omega[0]))
+    arrived = np.ones(rows.size, bool)
+    for k in range(1, steps + 1):
+        point = centre + (k / steps) * (values[rows] - centre)
+        guess: dict[str, Any] = {s: eq[:, i] for i, s in enumerate(ev.states)}
+        guess[ev.bifurcation] = mu0
+        step = ev.batch(
+            {**base, **{n: point[:, j] for j, n in enumerate(spec.names)}},
+            guess=guess,
+            threads=threads,
+        )
+        good = np.asarray(step.ok, bool)
+        arrived &= good
+        eq[good] = np.asarray(step.equilibrium, float)[good]
+        mu0[good] = np.asarray(step.critical_value)[good]
+        omega[good] = np.asarray(step.omega)[good]
+    direct_mu = np.asarray(batch.critical_value)[rows]
+    direct_omega = np.asarray(batch.omega)[rows]
+    mu_size = np.maximum(np.abs(mu0), np.abs(direct_mu))
+    same = (
+        arrived
+        & (np.abs(mu0 - direct_mu) <= BRANCH_RTOL * mu_size)
+        & (np.abs(omega - direct_omega) <= BRANCH_RTOL * np.maximum(omega, direct_omega))
+    )
+    marked[rows] = ~same
+    return marked
 
 
 def run_robustness(
@@ -494,6 +580,7 @@ def run_robustness(
     progress: bool | None = None,
     save: str | Path | None = None,
     client: Any = None,
+    branch_steps: int = BRANCH_STEPS,
 ) -> RobustnessResult:
     """Monte Carlo over the uncertain parameters of a compiled model.
 
@@ -507,11 +594,15 @@ def run_robustness(
     as ``hard_samples``.
     ``client`` (a ``distributed.Client``) runs the chunks on a Dask cluster with the
     same result, bit for bit; ``save`` is then not available (only summaries travel).
+    ``branch_steps`` sets the continuation that tells whether each sample's Hopf point is
+    on the nominal branch (:func:`off_nominal_branch`; it costs ``branch_steps`` more
+    evaluations per sample; 0 skips it).
     """
     samples = _check_count(samples, "samples", 1)
     chunk_size = _check_count(chunk_size, "chunk_size", 1)
     keep = _check_count(keep, "keep", 0)
     keep_hard = _check_count(keep_hard, "keep_hard", 0)
+    branch_steps = _check_count(branch_steps, "branch_steps", 0)
     if method not in METHODS:
         raise StudyError(f"sampling method must be one of {', '.join(METHODS)}; got {method!r}")
     levels = [float(q) for q in quantile_levels]
@@ -527,12 +618,14 @@ def run_robustness(
     spec, fixed = study_setup(ev, uncertainty, fixed)
     columns = output_columns(spec, ev.states)
     labels = _status_labels()
-    base = {k: v for k, v in fixed.items() if k not in spec.names}
+    # fixed values of uncertain parameters re-centre their distributions: they are the
+    # nominal point of the branch check, and every draw overrides them in the inputs
+    base = dict(fixed)
 
     reservoir = _Reservoir(min(keep, samples), len(columns))
     hard_reservoir = _Reservoir(min(keep_hard, samples), len(columns))
     counts = np.zeros(max(labels) + 1, dtype=np.int64)
-    done = subcritical = degenerate = n_first = 0
+    done = subcritical = degenerate = n_first = off_branch = 0
     store = open_store(save, columns, spec.dimension, labels) if save is not None else None
     bar = _progress(samples, progress)
     stopped = False
@@ -541,7 +634,7 @@ def run_robustness(
             if client is not None:
                 from lyacomp.studies.cluster import robustness_on_cluster
 
-                done, counts, n_first, subcritical, degenerate = robustness_on_cluster(
+                done, counts, n_first, subcritical, degenerate, off_branch = robustness_on_cluster(
                     client,
                     ev,
                     spec,
@@ -556,6 +649,7 @@ def run_robustness(
                     hard_reservoir,
                     bar,
                     flag,
+                    branch_steps,
                 )
             # with a client the cluster did every chunk and this loop has none left
             local_starts = range(0, samples if client is None else 0, chunk_size)
@@ -565,7 +659,7 @@ def run_robustness(
                     break
                 m = min(chunk_size, samples - start)
                 keys, block, status, hard, tallies = evaluate_chunk(
-                    ev, spec, base, seed, chunk, m, method, threads
+                    ev, spec, base, seed, chunk, m, method, threads, branch_steps
                 )
                 ok = status == 0
                 if store is not None:
@@ -574,6 +668,7 @@ def run_robustness(
                 n_first += tallies["first_loss"]
                 subcritical += tallies["subcritical"]
                 degenerate += tallies["degenerate"]
+                off_branch += tallies["off_branch"]
                 if reservoir.capacity:
                     reservoir.offer(keys[ok], block[ok])
                 if hard_reservoir.capacity:
@@ -615,6 +710,8 @@ def run_robustness(
         unstable_equilibrium=n_ok - n_first,
         subcritical=subcritical,
         degenerate=degenerate,
+        off_branch=off_branch,
+        branch_steps=branch_steps,
         confidence=confidence,
         interval=wilson_interval(subcritical, n_first, confidence),
         quantiles=quantiles,

@@ -22,6 +22,7 @@ equilibrium.
 
 from __future__ import annotations
 
+import logging
 import math
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
@@ -31,6 +32,9 @@ import numpy as np
 import sympy
 
 from lyacomp.errors import StudyError
+
+#: Progress notes (the CLI shows them on a terminal only): a run can take seconds.
+progress_log = logging.getLogger("lyacomp.progress")
 
 #: Ratio of the equilibrium's growth rate to the frequency used by default to pick
 #: how far past onset to simulate: ``|d * (mu - mu0)| = growth * omega``.
@@ -75,6 +79,10 @@ SETTLE_EFOLDS = 7.0
 #: Periods in each of the two measuring windows (the drift between them is reported).
 WINDOW_PERIODS = 10
 SAMPLES_PER_PERIOD = 512
+#: A settled cycle's period may differ from the compiled 2 pi / omega by this fraction
+#: (past onset the period moves by O(growth), a few percent at the default growth).
+PERIOD_TOLERANCE = 0.05
+
 #: Refuse runs longer than this many periods (the offset is then too small).
 MAX_PERIODS = 20000
 #: Relative change of the amplitude between the two windows below which the cycle
@@ -166,13 +174,19 @@ class SimulationCheck:
     @property
     def agrees(self) -> bool:
         """Supercritical: settled on a cycle whose largest amplitude is within 10% of the
-        prediction. Subcritical: the inner run returned and the outer run escaped or grew
-        onto a larger oscillation."""
+        prediction and whose period is within PERIOD_TOLERANCE of the compiled one.
+        Subcritical: the inner run returned and the outer run escaped or grew onto a
+        larger oscillation."""
         if self.criticality == "supercritical":
             if self.measured is None or not self.measured.settled:
                 return False
             main = int(np.argmax(self.predicted_amplitude))
-            return abs(self.amplitude_error[main]) < 0.1
+            period_error = self.period_error
+            return (
+                abs(self.amplitude_error[main]) < 0.1
+                and period_error is not None
+                and abs(period_error) < PERIOD_TOLERANCE
+            )
         outcomes = {run.label: run.outcome for run in self.runs}
         return outcomes.get("inside") == "returned" and outcomes.get("outside") in OUTWARD
 
@@ -310,6 +324,7 @@ def _integrate(
 ):
     from scipy.integrate import solve_ivp
 
+    progress_log.info("simulating the model up to t = %.4g ...", t_end)
     try:
         sol = solve_ivp(
             nm.rhs,
@@ -432,7 +447,7 @@ def check_by_simulation(
     cycle = eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q))
     radius = 2 * w
     predicted = np.array([res.amplitude[s] for s in nm.state_names]) * math.sqrt(abs(delta))
-    period = 2 * math.pi / omega
+    period = res.period  # the compiled period, 2 pi / omega (the result being checked)
     rate = 2 * abs(d * delta)
     settle = SETTLE_EFOLDS / rate
     if settle / period > MAX_PERIODS:

@@ -300,6 +300,7 @@ def test_quantiles_from_the_bounded_subset(normal_form):
         chunk_size=10_000,
         keep=keep,
         uncertainty={"s": {"distribution": "normal", "mean": 0.1, "sd": 0.5}},
+        branch_steps=0,  # only the study's own batch calls are counted here
     )
     assert max(sizes) == 10_000 and sum(sizes) == 200_000
     assert result.quantile_basis == keep == len(result.kept["l1"])
@@ -416,6 +417,7 @@ def test_ctrl_c_returns_the_partial_result(normal_form):
         seed=2,
         chunk_size=1000,
         uncertainty={"s": {"distribution": "normal", "sd": 1.0}},
+        branch_steps=0,  # one batch call per chunk: the third call is the third chunk
     )
     assert result.interrupted
     assert result.samples == result.ok == 3000 and result.requested == 100_000

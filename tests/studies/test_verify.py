@@ -222,3 +222,43 @@ def test_verify_command_errors_are_one_line(tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2
     assert err.startswith("lyacomp: error:") and err.count("\n") == 1
+
+
+class _PeriodOff:
+    """An evaluator whose results report a period 1.5 times the true one (as a compiled
+    period with a bug would): verify must compare the simulation with that number."""
+
+    class _Result:
+        def __init__(self, res):
+            self._res = res
+
+        def __getattr__(self, name):
+            return getattr(self._res, name)
+
+        @property
+        def period(self):
+            return 1.5 * self._res.period
+
+    def __init__(self, ev):
+        self._ev = ev
+
+    def __getattr__(self, name):
+        return getattr(self._ev, name)
+
+    def __call__(self, *args, **kwargs):
+        return self._Result(self._ev(*args, **kwargs))
+
+
+def test_verify_compares_with_the_compiled_period(caplog):
+    model = tilted_normal_form(a=2.0, b=1.5, s=0.1, w=1.3, m=0.2)
+    ev = lyacomp.compile(model)
+    with caplog.at_level("INFO", logger="lyacomp.progress"):
+        honest = check_by_simulation(model, evaluator=ev)
+    assert honest.predicted_period == ev().period
+    assert any("simulating the model" in r.getMessage() for r in caplog.records)
+    wrong = check_by_simulation(model, evaluator=_PeriodOff(ev))
+    assert wrong.predicted_period == 1.5 * ev().period
+    # the simulation still measures the true period (2 pi / omega near onset; common
+    # practice, no source), so the comparison shows the disagreement
+    assert wrong.period_error == pytest.approx(1 / 1.5 - 1, abs=0.05)
+    assert not wrong.agrees
