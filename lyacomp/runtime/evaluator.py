@@ -14,7 +14,8 @@ import numpy as np
 
 from ..errors import EvaluationError, InternalError
 from ..model import Model
-from .results import BatchResult, HopfResult
+from . import operating as op
+from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
 
@@ -252,11 +253,26 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(self, params: Mapping[str, float] | None = None, /, **values: float) -> HopfResult:
+    def __call__(
+        self,
+        params: Mapping[str, float] | None = None,
+        /,
+        *,
+        operating: float | None = None,
+        search: str | None = None,
+        **values: float,
+    ) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
         Every value must be one real number (see :meth:`batch` for the rules).
+        ``search="operating"`` (the default when the model declares ``operating`` or
+        ``operating=`` is given) follows the equilibrium from that stable operating value
+        of the bifurcation parameter to the first loss of stability; ``search="guess"``
+        runs Newton from the starting guesses (faster, and it finds the Hopf point nearest
+        the guesses, first loss of stability or not). Parameters named ``operating`` or
+        ``search`` go in the mapping.
         """
+        method = op.chosen_search(self, search, operating)
         values = _names(params, values, "parameters")
         ffi = self.ffi
         row = self._nominal.copy()
@@ -269,9 +285,24 @@ class Evaluator:
                 raise self._unknown(values) from None
         p = ffi.new(self._params_type, row)
         res = ffi.new(self._result_type)
+        if method == "operating":
+            return self._call_operating(p, row, operating, res)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
-        return HopfResult(res[0], self.states, self.bifurcation)
+        guess = row[self._index[self.bifurcation]] if self.bifurcation else None
+        return HopfResult(res[0], self.states, self.bifurcation, SearchInfo("guess", guess))
+
+    def _call_operating(self, p: Any, row: list[float], operating: Any, res: Any) -> HopfResult:
+        """One evaluation by the operating-point search."""
+        value = self.model.operating if operating is None else operating
+        value = _real_scalar(value, "operating value")
+        guess = np.asarray(row[self._index[self.bifurcation]])
+        direction = int(op.directions(self, guess, op.check_finite(np.asarray(value))))
+        info = self.ffi.new(f"{PREFIX}_search *")
+        evaluate = getattr(self.lib, f"{PREFIX}_evaluate_operating")
+        evaluate(p, self._guess, value, direction, self._options, res, info)
+        search = SearchInfo("operating", value, op.word(direction), info.steps, info.loss_value)
+        return HopfResult(res[0], self.states, self.bifurcation, search)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
@@ -280,6 +311,8 @@ class Evaluator:
         /,
         *,
         threads: int | None = None,
+        operating: Any = None,
+        search: str | None = None,
         **values: Any,
     ) -> BatchResult:
         """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
@@ -290,7 +323,10 @@ class Evaluator:
         numpy arrays and scalars of real dtypes, sequences of these; complex, text, dates,
         object and masked arrays are refused. ``threads=None`` uses all cores. A keyword
         named ``threads`` is always the option: a parameter of that name goes in the mapping.
+        ``search`` and ``operating`` are those of a scalar call; ``operating`` may be an
+        array (one operating value per sample, broadcast like the parameters).
         """
+        method = op.chosen_search(self, search, operating)
         values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
@@ -301,10 +337,16 @@ class Evaluator:
             else np.asarray(nominal)
             for name, nominal in zip(self.parameters, self._nominal)
         ]
+        if method == "operating":
+            value = self.model.operating if operating is None else operating
+            op_array = op.check_finite(_real_array(value, "operating value"))
+        else:
+            op_array = np.asarray(0.0)
         try:
-            shape = np.broadcast_shapes(*(a.shape for a in arrays))
+            shape = np.broadcast_shapes(*(a.shape for a in arrays), op_array.shape)
         except ValueError:
             shapes = {n: a.shape for n, a in zip(self.parameters, arrays)}
+            shapes["(operating)"] = op_array.shape
             raise EvaluationError(f"parameter arrays do not broadcast together: {shapes}") from None
         count = math.prod(shape)
         columns, strides = [], []
@@ -329,6 +371,9 @@ class Evaluator:
             "equilibrium": np.empty((n, count)),
             "amplitude": np.empty((n, count)),
         }
+        extra: dict[str, np.ndarray] = {}
+        if method == "operating":
+            extra = {"loss_value": np.empty(shape), "search_steps": np.empty(shape, np.int32)}
         if count:
             ffi = self.ffi
             c_out = ffi.new(f"{PREFIX}_batch_out *")
@@ -352,20 +397,63 @@ class Evaluator:
                 [ffi.cast("double *", ffi.from_buffer(c)) for c in columns] or [ffi.NULL],
             )
             c_strides = ffi.new("long[]", strides or [0])
-            start = ffi.NULL if self.bifurcation in values else self._start
-            self._evaluate_batch(
-                count,
-                c_params,
-                c_strides,
-                self._guess,
-                start,
-                self._options,
-                threads,
-                c_out,
-            )
+            if method == "operating":
+                guess = arrays[self._index[self.bifurcation]]
+                extra = self._batch_operating(
+                    count, shape, c_params, c_strides, guess, op_array, threads, c_out
+                )
+            else:
+                start = ffi.NULL if self.bifurcation in values else self._start
+                self._evaluate_batch(
+                    count,
+                    c_params,
+                    c_strides,
+                    self._guess,
+                    start,
+                    self._options,
+                    threads,
+                    c_out,
+                )
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
-        return BatchResult(states=self.states, **vector, **matrix)
+        return BatchResult(states=self.states, **vector, **matrix, search=method, **extra)
+
+    def _batch_operating(
+        self,
+        count: int,
+        shape: tuple[int, ...],
+        c_params: Any,
+        c_strides: Any,
+        guess: np.ndarray,
+        operating: np.ndarray,
+        threads: int,
+        c_out: Any,
+    ) -> dict[str, np.ndarray]:
+        """The operating-point search over a batch: one operating value and direction per
+        sample (broadcast); returns the per-sample loss values and step counts."""
+        ffi = self.ffi
+        op_column = np.ascontiguousarray(np.broadcast_to(operating, shape), dtype=np.float64)
+        dirs = op.directions(self, np.broadcast_to(guess, shape), op_column)
+        dirs = np.ascontiguousarray(dirs, dtype=np.int8).reshape(-1)
+        op_column = op_column.reshape(-1)
+        loss = np.empty(count)
+        steps = np.empty(count, dtype=np.int32)
+        getattr(self.lib, f"{PREFIX}_evaluate_operating_batch")(
+            count,
+            c_params,
+            c_strides,
+            ffi.cast("double *", ffi.from_buffer(op_column)),
+            1,
+            ffi.cast("signed char *", ffi.from_buffer(dirs)),
+            1,
+            self._guess,
+            self._options,
+            threads,
+            c_out,
+            ffi.cast("double *", ffi.from_buffer(loss)),
+            ffi.cast("int *", ffi.from_buffer(steps)),
+        )
+        return {"loss_value": loss.reshape(shape), "search_steps": steps.reshape(shape)}
 
     def _threads(self, threads: Any) -> int:
         """The thread count for C (0: all cores), or an EvaluationError."""
