@@ -21,7 +21,7 @@ from .hopf_scan import scan_for_hopf
 
 EXAMPLE = (
     "examples:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json\n"
-    "  lyacomp eval benchmarks/models/m2_towed_sensor.toml --operating 0 --set tow=0.8"
+    "  lyacomp eval examples/duct_flap.toml --operating 0.5   # from a stable flow speed up"
 )
 
 

@@ -1,4 +1,4 @@
-"""Choosing between the two searches, and the operating-point search's C calls."""
+"""Choosing between the two searches, and the directions of the operating-point search."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import EvaluationError
-from ..model.model import search_direction
+from ..model.model import DIRECTIONS
 
 SEARCHES = ("guess", "operating")
 """``search=`` words: Newton from the starting guesses, or the equilibrium followed from a
@@ -50,7 +50,7 @@ def directions(ev: Any, guess: np.ndarray, operating: np.ndarray) -> np.ndarray:
     """+1/-1 per sample: the model's direction, else toward the parameter's guess."""
     word = ev.model.direction
     if word is not None:
-        return np.full(operating.shape, search_direction(word, 0.0, 0.0), dtype=np.int8)
+        return np.full(operating.shape, DIRECTIONS[word], dtype=np.int8)
     same = guess == operating
     if same.any():
         where = int(np.flatnonzero(same.reshape(-1))[0])
