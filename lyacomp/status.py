@@ -22,6 +22,11 @@ class Status(IntEnum):
     NOT_CRITICAL = 8  # no bifurcation parameter and the given point is not at onset
     RESONANCE = 9  # 2 i omega is also an eigenvalue (1:2 resonance)
     EXTRA_CRITICAL_EIGENVALUE = 10  # more eigenvalues on the imaginary axis, or a non-simple pair
+    # outcomes of the operating-point search (the equilibrium followed from a stable point)
+    REAL_EIGENVALUE_CROSSING = 11  # stability is lost first through a real eigenvalue at zero
+    UNSTABLE_AT_OPERATING = 12  # the equilibrium is not stable at the operating value
+    STABLE_THROUGHOUT = 13  # no loss of stability within the search budget
+    BRANCH_LOST = 14  # the equilibrium could not be followed further (no crossing seen)
 
     @property
     def label(self) -> str:
@@ -64,6 +69,24 @@ _EXPLANATIONS = {
     Status.EXTRA_CRITICAL_EIGENVALUE: (
         "further eigenvalues lie on the imaginary axis or the pair is not simple; "
         "l1 alone does not decide the onset"
+    ),
+    Status.REAL_EIGENVALUE_CROSSING: (
+        "following the equilibrium from the operating value, it first loses stability "
+        "through a real eigenvalue passing zero (a fold or a branch point), not at a Hopf "
+        "point: no oscillation onset there, and l1 is not defined"
+    ),
+    Status.UNSTABLE_AT_OPERATING: (
+        "the equilibrium found at the operating value is not stable (an eigenvalue has "
+        "non-negative real part): give an operating value, and state guesses, where it is"
+    ),
+    Status.STABLE_THROUGHOUT: (
+        "following the equilibrium from the operating value, no eigenvalue crossed into the "
+        "right half-plane within the search budget (400 continuation steps); check the "
+        "direction, or use the guess-based search near a known Hopf point"
+    ),
+    Status.BRANCH_LOST: (
+        "the equilibrium could not be followed from the operating value (the branch ends, "
+        "leaves the model's domain, or turns too sharply) before any loss of stability"
     ),
 }
 

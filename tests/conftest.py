@@ -52,4 +52,5 @@ def documented_keys() -> set[str]:
         "criticality",
         "unstable_count",
         "stable_side",
+        "search",
     }

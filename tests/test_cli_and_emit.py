@@ -140,6 +140,8 @@ def _variant(n: int, mode: str) -> lyacomp.Model:
     elif mode == "closed_forms":
         extra["critical_value"] = "0"
         extra["equilibrium"] = {s: "0" for s in names}
+    elif mode == "closed_equilibrium":  # Newton for mu, the equilibrium in closed form
+        extra["equilibrium"] = {s: "0" for s in names}
     return lyacomp.Model(
         name=f"variant {n} {mode}",
         states=states,
@@ -151,7 +153,7 @@ def _variant(n: int, mode: str) -> lyacomp.Model:
 
 @pytest.mark.skipif(shutil.which("cc") is None, reason="needs a C compiler on PATH")
 @pytest.mark.parametrize("n", [2, 3, 5])
-@pytest.mark.parametrize("mode", ["newton", "no_bifurcation", "closed_forms"])
+@pytest.mark.parametrize("mode", ["newton", "no_bifurcation", "closed_forms", "closed_equilibrium"])
 def test_every_template_variant_compiles_without_warnings(n, mode, tmp_path):
     # Common practice, no source: generated code must be warning-free under -Wall -Wextra.
     sources = lyacomp.generate(_variant(n, mode), header_name="variant.h")

@@ -9,6 +9,7 @@ import sys
 from ..model import Model
 from ..pipeline import compile_model
 from ..runtime import CAUTION, HopfResult
+from ..runtime.operating import SEARCHES
 from .common import (
     add_guess_args,
     add_model_args,
@@ -18,7 +19,10 @@ from .common import (
 )
 from .hopf_scan import scan_for_hopf
 
-EXAMPLE = "example:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json"
+EXAMPLE = (
+    "examples:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json\n"
+    "  lyacomp eval examples/duct_flap.toml --operating 0.5   # from a stable flow speed up"
+)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -32,6 +36,21 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     )
     add_model_args(parser)
     add_guess_args(parser)
+    parser.add_argument(
+        "--operating",
+        type=float,
+        default=None,
+        metavar="VALUE",
+        help="a value of the bifurcation parameter where the equilibrium is stable (the "
+        "state guesses are the equilibrium there): follow it to its first loss of stability",
+    )
+    parser.add_argument(
+        "--search",
+        choices=SEARCHES,
+        default=None,
+        help="'operating': from the operating value (default when one is given or declared); "
+        "'guess': Newton from the starting guesses (faster)",
+    )
     parser.add_argument("--json", action="store_true", help="print one JSON object")
     parser.add_argument(
         "--degenerate-tol",
@@ -48,9 +67,30 @@ def _fmt(value: float) -> str:
     return f"{value:.10g}"
 
 
+def _operating_line(result: HopfResult) -> str | None:
+    """What the operating-point search met, in one sentence (None for other searches)."""
+    search, mu = result.search, result.bifurcation_parameter
+    if search is None or search.method != "operating":
+        return None
+    start = f"the equilibrium, stable at {mu} = {_fmt(search.start_value)}"
+    if result.ok:
+        return f"{start}, first loses stability at {mu}_c = {_fmt(result.critical_value)} " + (
+            "through a Hopf point"
+        )
+    if result.status == "real_eigenvalue_crossing":
+        return (
+            f"{start}, first loses stability at {mu}_c = {_fmt(search.loss_value)} through "
+            "a real eigenvalue (no oscillation onset; l1 not defined)"
+        )
+    return None
+
+
 def report(result: HopfResult, model_name: str) -> str:
     """A short human-readable account of one evaluation."""
     lines = [f"model: {model_name}", f"status: {result.status}"]
+    operating = _operating_line(result)
+    if operating is not None:
+        lines.append(f"search: {operating}")
     if not result.ok:
         # the explanation goes to stderr once (run); the report only names the status
         return "\n".join(lines)
@@ -118,7 +158,7 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(values)
+    result = ev(values, operating=args.operating, search=args.search)
     if args.json:
         print(json.dumps(result.to_dict(), indent=2))
     else:

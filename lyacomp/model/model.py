@@ -35,6 +35,19 @@ def _as_float(value: Any, where: str) -> float:
     return value
 
 
+DIRECTIONS = {"up": 1, "down": -1}
+"""The words of [bifurcation] direction and the sign of the parameter's move."""
+
+
+def search_direction(direction: str | None, guess: float, operating: float) -> int | None:
+    """+1 or -1 from a direction word, else toward ``guess``; None when undecidable."""
+    if direction is not None:
+        return DIRECTIONS[direction]
+    if guess == operating:
+        return None
+    return 1 if guess > operating else -1
+
+
 @dataclass(frozen=True)
 class SymbolicModel:
     """The model as sympy objects, definitions substituted.
@@ -62,7 +75,11 @@ class Model:
     ``guess`` its starting value (default: nominal). ``critical_value`` (an expression
     in the other parameters) and ``equilibrium`` (state -> expression in the
     parameters) are optional closed forms that replace the numeric solve.
-    ``uncertainty`` is kept as given for the studies.
+    ``uncertainty`` is kept as given for the studies. ``operating`` is a value of the
+    bifurcation parameter where the equilibrium is stable (the state guesses are the
+    equilibrium there); the operating-point search follows the equilibrium from it,
+    ``direction`` ``"up"`` or ``"down"`` (default: toward ``guess``), to the first loss
+    of stability.
     """
 
     name: str
@@ -76,6 +93,8 @@ class Model:
     equilibrium: Mapping[str, Any] | None = None
     uncertainty: Mapping[str, Any] | None = None
     source: str = "<python>"
+    operating: float | None = None
+    direction: str | None = None
     _symbolic: SymbolicModel = field(init=False, repr=False)
 
     def __post_init__(self) -> None:
@@ -152,6 +171,7 @@ class Model:
             raise ModelError(f"{src}: [bifurcation] guess/critical_value need a 'parameter'")
         if self.guess is not None:
             object.__setattr__(self, "guess", _as_float(self.guess, f"{src}: [bifurcation] guess"))
+        self._check_operating()
         if self.equilibrium is not None:
             for key in self.equilibrium:
                 if key not in self.states:
@@ -163,6 +183,46 @@ class Model:
                     raise ModelError(
                         f"{src}: [equilibrium] has no expression for {quote_name(state)}"
                     )
+
+    def _check_operating(self) -> None:
+        src = self.source
+        if self.operating is None:
+            if self.direction is not None:
+                raise ModelError(
+                    f"{src}: [bifurcation] direction needs an operating value "
+                    "('operating = VALUE', where the equilibrium is stable)"
+                )
+            return
+        if self.bifurcation is None:
+            raise ModelError(f"{src}: [bifurcation] operating needs a 'parameter'")
+        if self.critical_value is not None:
+            raise ModelError(
+                f"{src}: [bifurcation] operating and critical_value exclude each other: the "
+                "closed form already gives the Hopf point; drop one of them"
+            )
+        operating = _as_float(self.operating, f"{src}: [bifurcation] operating")
+        object.__setattr__(self, "operating", operating)
+        if self.direction is not None and (
+            not isinstance(self.direction, str) or self.direction not in DIRECTIONS
+        ):
+            raise ModelError(
+                f'{src}: [bifurcation] direction must be "up" or "down", got '
+                f"{repr(self.direction)[:40]}"
+            )
+        if self.direction is None and self.nominal[self.bifurcation] == operating:
+            raise ModelError(
+                f"{src}: [bifurcation] cannot tell which way to move "
+                f"{quote_name(self.bifurcation)} from operating = {operating:g}: its guess "
+                'is the same value; add direction = "up" or "down" (or a guess on '
+                "the side where stability is lost)"
+            )
+
+    @property
+    def operating_direction(self) -> int | None:
+        """+1 (up) or -1 (down): where the operating-point search moves the parameter."""
+        if self.operating is None:
+            return None
+        return search_direction(self.direction, self.nominal[self.bifurcation], self.operating)
 
     # -- symbolic form ----------------------------------------------------------------
     def _parse(self, value: Any, symbols: Mapping[str, sp.Expr], where: str) -> sp.Expr:
@@ -280,6 +340,8 @@ class Model:
             "equilibrium": None if self.equilibrium is None else dict(self.equilibrium),
             "uncertainty": dict(self.uncertainty),
             "source": self.source,
+            "operating": self.operating,
+            "direction": self.direction,
         }
 
     def replace(self, **changes: Any) -> Model:

@@ -25,7 +25,7 @@ _TOP_KEYS = {
     "equilibrium",
     "uncertainty",
 }
-_BIFURCATION_KEYS = {"parameter", "guess", "critical_value"}
+_BIFURCATION_KEYS = {"parameter", "guess", "critical_value", "operating", "direction"}
 
 
 def _table(doc: dict[str, Any], key: str, src: str, required: bool) -> dict[str, Any] | None:
@@ -67,6 +67,8 @@ def model_from_dict(doc: dict[str, Any], source: str = "<dict>") -> Model:
         bifurcation=bif.get("parameter"),
         guess=bif.get("guess"),
         critical_value=bif.get("critical_value"),
+        operating=bif.get("operating"),
+        direction=bif.get("direction"),
         equilibrium=_table(doc, "equilibrium", source, required=False),
         uncertainty=_table(doc, "uncertainty", source, required=False),
         source=source,

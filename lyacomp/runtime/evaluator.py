@@ -14,7 +14,8 @@ import numpy as np
 
 from ..errors import EvaluationError, InternalError
 from ..model import Model
-from .results import BatchResult, HopfResult
+from . import operating as op
+from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
 
@@ -253,11 +254,26 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(self, params: Mapping[str, float] | None = None, /, **values: float) -> HopfResult:
+    def __call__(
+        self,
+        params: Mapping[str, float] | None = None,
+        /,
+        *,
+        operating: float | None = None,
+        search: str | None = None,
+        **values: float,
+    ) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
         Every value must be one real number (see :meth:`batch` for the rules).
+        ``search="operating"`` (the default when the model declares ``operating`` or
+        ``operating=`` is given) follows the equilibrium from that stable operating value
+        of the bifurcation parameter to the first loss of stability; ``search="guess"``
+        runs Newton from the starting guesses (faster, and it finds the Hopf point nearest
+        the guesses, first loss of stability or not). Parameters named ``operating`` or
+        ``search`` go in the mapping.
         """
+        method = op.chosen_search(self, search, operating)
         values = _names(params, values, "parameters")
         ffi = self.ffi
         row = self._nominal.copy()
@@ -270,9 +286,24 @@ class Evaluator:
                 raise self._unknown(values) from None
         p = ffi.new(self._params_type, row)
         res = ffi.new(self._result_type)
+        if method == "operating":
+            return self._call_operating(p, row, operating, res)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
-        return HopfResult(res[0], self.states, self.bifurcation)
+        guess = row[self._index[self.bifurcation]] if self.bifurcation else None
+        return HopfResult(res[0], self.states, self.bifurcation, SearchInfo("guess", guess))
+
+    def _call_operating(self, p: Any, row: list[float], operating: Any, res: Any) -> HopfResult:
+        """One evaluation by the operating-point search."""
+        value = self.model.operating if operating is None else operating
+        value = _real_scalar(value, "operating value")
+        guess = np.asarray(row[self._index[self.bifurcation]])
+        direction = int(op.directions(self, guess, op.check_finite(np.asarray(value))))
+        info = self.ffi.new(f"{PREFIX}_search *")
+        evaluate = getattr(self.lib, f"{PREFIX}_evaluate_operating")
+        evaluate(p, self._guess, value, direction, self._options, res, info)
+        search = SearchInfo("operating", value, op.word(direction), info.steps, info.loss_value)
+        return HopfResult(res[0], self.states, self.bifurcation, search)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
@@ -282,6 +313,8 @@ class Evaluator:
         *,
         threads: int | None = None,
         guess: Mapping[str, Any] | None = None,
+        operating: Any = None,
+        search: str | None = None,
         **values: Any,
     ) -> BatchResult:
         """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
@@ -298,7 +331,18 @@ class Evaluator:
         guesses every sample starts from its own guesses (states not given keep the
         evaluator's guesses), not from the nominal solution; studies pass a solved
         neighbour's equilibrium and critical value to stay on its branch.
+
+        ``search`` and ``operating`` are those of a scalar call; ``operating`` may be an
+        array (one operating value per sample, broadcast like the parameters). ``guess``
+        belongs to the guess-based search and is refused with the operating search.
         """
+        method = op.chosen_search(self, search, operating)
+        if method == "operating" and guess is not None:
+            raise EvaluationError(
+                "guess= starts the guess-based search; the operating-point search starts"
+                " from the equilibrium at the operating value: give one or the other"
+                " (search='guess' to use the guesses)"
+            )
         values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
@@ -312,11 +356,19 @@ class Evaluator:
             else np.asarray(nominal)
             for name, nominal in zip(self.parameters, self._nominal)
         ]
+        if method == "operating":
+            value = self.model.operating if operating is None else operating
+            op_array = op.check_finite(_real_array(value, "operating value"))
+        else:
+            op_array = np.asarray(0.0)
         try:
-            shape = np.broadcast_shapes(*(a.shape for a in [*arrays, *guesses.values()]))
+            shape = np.broadcast_shapes(
+                *(a.shape for a in [*arrays, *guesses.values()]), op_array.shape
+            )
         except ValueError:
             shapes = {n: a.shape for n, a in zip(self.parameters, arrays)}
             shapes.update({f"guess {n}": a.shape for n, a in guesses.items()})
+            shapes["(operating)"] = op_array.shape
             raise EvaluationError(f"parameter arrays do not broadcast together: {shapes}") from None
         count = math.prod(shape)
         columns, strides = [], []
@@ -341,6 +393,9 @@ class Evaluator:
             "equilibrium": np.empty((n, count)),
             "amplitude": np.empty((n, count)),
         }
+        extra: dict[str, np.ndarray] = {}
+        if method == "operating":
+            extra = {"loss_value": np.empty(shape), "search_steps": np.empty(shape, np.int32)}
         if count:
             ffi = self.ffi
             c_out = ffi.new(f"{PREFIX}_batch_out *")
@@ -364,7 +419,12 @@ class Evaluator:
                 [ffi.cast("double *", ffi.from_buffer(c)) for c in columns] or [ffi.NULL],
             )
             c_strides = ffi.new("long[]", strides or [0])
-            if guesses:
+            if method == "operating":
+                bif_guess = arrays[self._index[self.bifurcation]]
+                extra = self._batch_operating(
+                    count, shape, c_params, c_strides, bif_guess, op_array, threads, c_out
+                )
+            elif guesses:
                 state_columns, state_strides = self._guess_columns(guesses, shape)
                 c_guesses = ffi.new(
                     "double *[]",
@@ -394,7 +454,44 @@ class Evaluator:
                 )
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
-        return BatchResult(states=self.states, **vector, **matrix)
+        return BatchResult(states=self.states, **vector, **matrix, search=method, **extra)
+
+    def _batch_operating(
+        self,
+        count: int,
+        shape: tuple[int, ...],
+        c_params: Any,
+        c_strides: Any,
+        guess: np.ndarray,
+        operating: np.ndarray,
+        threads: int,
+        c_out: Any,
+    ) -> dict[str, np.ndarray]:
+        """The operating-point search over a batch: one operating value and direction per
+        sample (broadcast); returns the per-sample loss values and step counts."""
+        ffi = self.ffi
+        op_column = np.ascontiguousarray(np.broadcast_to(operating, shape), dtype=np.float64)
+        dirs = op.directions(self, np.broadcast_to(guess, shape), op_column)
+        dirs = np.ascontiguousarray(dirs, dtype=np.int8).reshape(-1)
+        op_column = op_column.reshape(-1)
+        loss = np.empty(count)
+        steps = np.empty(count, dtype=np.int32)
+        getattr(self.lib, f"{PREFIX}_evaluate_operating_batch")(
+            count,
+            c_params,
+            c_strides,
+            ffi.cast("double *", ffi.from_buffer(op_column)),
+            1,
+            ffi.cast("signed char *", ffi.from_buffer(dirs)),
+            1,
+            self._guess,
+            self._options,
+            threads,
+            c_out,
+            ffi.cast("double *", ffi.from_buffer(loss)),
+            ffi.cast("int *", ffi.from_buffer(steps)),
+        )
+        return {"loss_value": loss.reshape(shape), "search_steps": steps.reshape(shape)}
 
     def _guess_arrays(self, guess: Mapping[str, Any] | None) -> dict[str, np.ndarray]:
         """The per-sample state guesses of ``batch`` as float arrays (checked names and

@@ -21,18 +21,55 @@ def _number(value: float) -> float | None:
     return None if math.isnan(value) else float(value)
 
 
+@dataclass(frozen=True)
+class SearchInfo:
+    """Which search located the Hopf point, and where it started."""
+
+    method: str
+    """"guess" (Newton from the starting guesses) or "operating" (followed from a stable point)."""
+    start_value: float | None
+    """The bifurcation parameter's value where the search started (guess or operating value)."""
+    direction: str | None = None
+    """"up" or "down": where the operating search moved the parameter."""
+    steps: int | None = None
+    """Continuation steps the operating search took."""
+    loss_value: float | None = None
+    """Where the operating search saw stability lost (also for a real eigenvalue crossing)."""
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "method": self.method,
+            "start_value": self.start_value,
+            "direction": self.direction,
+            "steps": self.steps,
+            "loss_value": None if self.loss_value is None else _number(self.loss_value),
+        }
+
+
 class HopfResult:
     """The outcome for one parameter set (a view on the C result struct).
 
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    __slots__ = ("_raw", "_states", "_bifurcation")
+    __slots__ = ("_raw", "_states", "_bifurcation", "_search")
 
-    def __init__(self, raw: Any, states: tuple[str, ...], bifurcation: str | None):
+    def __init__(
+        self,
+        raw: Any,
+        states: tuple[str, ...],
+        bifurcation: str | None,
+        search: SearchInfo | None = None,
+    ):
         self._raw = raw
         self._states = states
         self._bifurcation = bifurcation
+        self._search = search
+
+    @property
+    def search(self) -> SearchInfo | None:
+        """How the point was searched for (None when the caller did not say)."""
+        return self._search
 
     @property
     def status(self) -> str:
@@ -135,6 +172,7 @@ class HopfResult:
             "criticality": self.criticality,
             "unstable_count": self.unstable_count,
             "stable_side": self.stable_side,
+            "search": None if self._search is None else self._search.to_dict(),
         }
 
     def __repr__(self) -> str:
@@ -169,6 +207,12 @@ class BatchResult:
     transversality: np.ndarray
     equilibrium: np.ndarray
     amplitude: np.ndarray
+    search: str = "guess"
+    """"guess" or "operating": which search ran."""
+    loss_value: np.ndarray | None = None
+    """Operating search: mu where stability was first lost (NaN where not seen)."""
+    search_steps: np.ndarray | None = None
+    """Operating search: continuation steps per sample."""
 
     def __len__(self) -> int:
         return int(self.status.size)
