@@ -116,6 +116,16 @@ def test_brusselator_from_b_equal_one_upward():
         np.testing.assert_allclose(getattr(b, name), getattr(guess, name), rtol=1e-10)
 
 
+def test_per_sample_guesses_belong_to_the_guess_search():
+    # The two starts exclude each other; search="guess" takes the per-sample guesses.
+    ev = lyacomp.compile(_brusselator(operating=1.0))
+    with pytest.raises(EvaluationError, match="give one or the other"):
+        ev.batch(A=np.array([1.5, 1.6]), guess={"x": np.array([1.5, 1.6])})
+    a = np.array([1.5, 1.6])
+    b = ev.batch(A=a, guess={"x": a, "y": 2.0 / a, "B": 1.0 + a**2}, search="guess")
+    np.testing.assert_allclose(b.critical_value, 1.0 + a**2, rtol=1e-12)  # B = 1 + A^2
+
+
 def test_brusselator_from_sympy_expressions():
     # The same model built from sympy expressions (the sympy entry point), operating given.
     x, y, a, bb = sp.symbols("x y A B")
