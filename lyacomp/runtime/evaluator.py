@@ -297,9 +297,13 @@ class Evaluator:
         and for the bifurcation parameter, broadcast like the parameters. With state
         guesses every sample starts from its own guesses (states not given keep the
         evaluator's guesses), not from the nominal solution; studies pass a solved
-        neighbour's equilibrium and critical value to stay on its branch.
+        neighbour's equilibrium and critical value to stay on its branch. (A model
+        parameter named ``guess`` still takes a keyword value that is not a mapping.)
         """
         values = _names(params, values, "parameters")
+        if guess is not None and not isinstance(guess, Mapping) and "guess" in self._index:
+            # a parameter named `guess` given as a keyword (a mapping is never its value)
+            values, guess = {**values, "guess": guess}, None
         if set(values) - set(self._index):
             raise self._unknown(values)
         threads = self._threads(threads)
