@@ -330,20 +330,24 @@ class Evaluator:
         and for the bifurcation parameter, broadcast like the parameters. With state
         guesses every sample starts from its own guesses (states not given keep the
         evaluator's guesses), not from the nominal solution; studies pass a solved
-        neighbour's equilibrium and critical value to stay on its branch.
+        neighbour's equilibrium and critical value to stay on its branch. (A model
+        parameter named ``guess`` still takes a keyword value that is not a mapping.)
 
         ``search`` and ``operating`` are those of a scalar call; ``operating`` may be an
         array (one operating value per sample, broadcast like the parameters). ``guess``
         belongs to the guess-based search and is refused with the operating search.
         """
         method = op.chosen_search(self, search, operating)
+        values = _names(params, values, "parameters")
+        if guess is not None and not isinstance(guess, Mapping) and "guess" in self._index:
+            # a parameter named `guess` given as a keyword (a mapping is never its value)
+            values, guess = {**values, "guess": guess}, None
         if method == "operating" and guess is not None:
             raise EvaluationError(
                 "guess= starts the guess-based search; the operating-point search starts"
                 " from the equilibrium at the operating value: give one or the other"
                 " (search='guess' to use the guesses)"
             )
-        values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
         threads = self._threads(threads)
