@@ -5,6 +5,7 @@ from __future__ import annotations
 import decimal
 import math
 import numbers
+import threading
 from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, replace
 from types import ModuleType
@@ -191,6 +192,8 @@ class Evaluator:
         self._params_type = self.ffi.typeof(f"double[{max(len(self.parameters), 1)}]")
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
+        self._local = threading.local()
+        self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
@@ -257,21 +260,32 @@ class Evaluator:
 
         Every value must be one real number (see :meth:`batch` for the rules).
         """
-        values = _names(params, values, "parameters")
-        ffi = self.ffi
-        row = self._nominal.copy()
+        if params is not None:
+            values = _names(params, values, "parameters")
+        # The parameter buffer is allocated once per thread (threads may share an
+        # evaluator); each call only refills it. The result struct is the HopfResult's own
+        # storage, read field by field when asked for.
+        try:
+            p = self._local.params
+        except AttributeError:
+            p = self._local.params = self.ffi.new(self._params_type)
         if values:
+            row = self._nominal.copy()
             index = self._index
             try:
                 for name, value in values.items():
-                    row[index[name]] = _real_scalar(value, f"parameter {name}")
+                    row[index[name]] = (
+                        value if type(value) is float else _real_scalar(value, f"parameter {name}")
+                    )
             except KeyError:
                 raise self._unknown(values) from None
-        p = ffi.new(self._params_type, row)
-        res = ffi.new(self._result_type)
-        start = ffi.NULL if self.bifurcation in values else self._start
+            p[0 : len(row)] = row
+        else:
+            p[0 : len(self._nominal)] = self._nominal
+        res = self.ffi.new(self._result_type)
+        start = self._null if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
-        return HopfResult(res[0], self.states, self.bifurcation)
+        return HopfResult(res, self.states, self.bifurcation)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
