@@ -5,6 +5,7 @@ from __future__ import annotations
 import decimal
 import math
 import numbers
+import threading
 from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, replace
 from types import ModuleType
@@ -192,6 +193,8 @@ class Evaluator:
         self._params_type = self.ffi.typeof(f"double[{max(len(self.parameters), 1)}]")
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
+        self._local = threading.local()
+        self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
         # Solve once at nominal values; later calls start Newton there (they fall back to
@@ -274,26 +277,38 @@ class Evaluator:
         ``search`` go in the mapping.
         """
         method = op.chosen_search(self, search, operating)
-        values = _names(params, values, "parameters")
-        ffi = self.ffi
-        row = self._nominal.copy()
+        if params is not None:
+            values = _names(params, values, "parameters")
+        # The parameter buffer is allocated once per thread (threads may share an
+        # evaluator); each call only refills it. The result struct is the HopfResult's own
+        # storage, read field by field when asked for.
+        try:
+            p = self._local.params
+        except AttributeError:
+            p = self._local.params = self.ffi.new(self._params_type)
         if values:
+            row = self._nominal.copy()
             index = self._index
             try:
                 for name, value in values.items():
-                    row[index[name]] = _real_scalar(value, f"parameter {name}")
+                    row[index[name]] = (
+                        value if type(value) is float else _real_scalar(value, f"parameter {name}")
+                    )
             except KeyError:
                 raise self._unknown(values) from None
-        p = ffi.new(self._params_type, row)
-        res = ffi.new(self._result_type)
+            p[0 : len(row)] = row
+        else:
+            row = self._nominal
+            p[0 : len(row)] = row
+        res = self.ffi.new(self._result_type)
         if method == "operating":
             return self._call_operating(p, row, operating, res)
-        start = ffi.NULL if self.bifurcation in values else self._start
+        start = self._null if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
         guess = row[self._index[self.bifurcation]] if self.bifurcation else None
-        return HopfResult(res[0], self.states, self.bifurcation, SearchInfo("guess", guess))
+        return HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
 
-    def _call_operating(self, p: Any, row: list[float], operating: Any, res: Any) -> HopfResult:
+    def _call_operating(self, p: Any, row: Any, operating: Any, res: Any) -> HopfResult:
         """One evaluation by the operating-point search."""
         value = self.model.operating if operating is None else operating
         value = _real_scalar(value, "operating value")
@@ -303,7 +318,7 @@ class Evaluator:
         evaluate = getattr(self.lib, f"{PREFIX}_evaluate_operating")
         evaluate(p, self._guess, value, direction, self._options, res, info)
         search = SearchInfo("operating", value, op.word(direction), info.steps, info.loss_value)
-        return HopfResult(res[0], self.states, self.bifurcation, search)
+        return HopfResult(res, self.states, self.bifurcation, search)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(

@@ -17,6 +17,10 @@ CAUTION = (
 )
 
 
+_LABELS = {int(s): s.label for s in Status}
+"""Status code -> label, without an enum construction per access."""
+
+
 def _number(value: float) -> float | None:
     return None if math.isnan(value) else float(value)
 
@@ -47,7 +51,7 @@ class SearchInfo:
 
 
 class HopfResult:
-    """The outcome for one parameter set (a view on the C result struct).
+    """The outcome for one parameter set (a view on the C result struct it owns).
 
     Numbers are NaN unless ``status == "ok"``.
     """
@@ -73,7 +77,7 @@ class HopfResult:
 
     @property
     def status(self) -> str:
-        return Status(self._raw.status).label
+        return _LABELS[self._raw.status]
 
     @property
     def status_code(self) -> Status:
