@@ -70,9 +70,7 @@ class MpDelay:
         v = self.stacked
         self.jac = [[sp.diff(fi, a) for a in v] for fi in self.f]
         self.d2 = [[[sp.diff(fi, a, b) for b in v] for a in v] for fi in self.f]
-        self.d3 = [
-            [[[sp.diff(fi, a, b, c) for c in v] for b in v] for a in v] for fi in self.f
-        ]
+        self.d3 = [[[[sp.diff(fi, a, b, c) for c in v] for b in v] for a in v] for fi in self.f]
 
     # -- evaluation helpers ----------------------------------------------------------
     def _subs(self, x, values):
@@ -178,7 +176,10 @@ class MpDelay:
         for k in range(m):
             a_k = blocks[k + 1]
             integrand = lambda xi, k=k, a_k=a_k: sum(  # noqa: E731
-                left[i] * mpmath.exp(-lam * (xi + taus[k])) * a_k[i, j] * q[j]
+                left[i]
+                * mpmath.exp(-lam * (xi + taus[k]))
+                * a_k[i, j]
+                * q[j]
                 * mpmath.exp(lam * xi)
                 for i in range(n)
                 for j in range(n)
