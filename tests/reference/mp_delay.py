@@ -263,7 +263,6 @@ def chebyshev_unstable_count(blocks, taus, points: int = 60, threshold: float = 
     tau_max = max(taus)
     k = np.arange(points + 1)
     nodes = np.cos(np.pi * k / points)  # Chebyshev points on [-1, 1], from 1 to -1
-    theta = tau_max * (nodes - 1.0) / 2.0  # on [-tau_max, 0], theta_0 = 0
     c = np.where((k == 0) | (k == points), 2.0, 1.0) * (-1.0) ** k
     diff = nodes[:, None] - nodes[None, :] + np.eye(points + 1)
     dmat = np.outer(c, 1.0 / c) / diff
