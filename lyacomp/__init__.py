@@ -9,12 +9,13 @@ from .config import BuildConfig
 from .errors import (
     BuildError,
     CompilerNotFoundError,
+    DelayError,
     EvaluationError,
     LyacompError,
     ModelError,
     StudyError,
 )
-from .model import Model, load_model
+from .model import Model, delayed, load_model
 from .pipeline import compile_model as compile
 from .pipeline import generate
 from .runtime import CAUTION, BatchResult, Evaluator, HopfResult, Tolerances
@@ -27,6 +28,7 @@ __all__ = [
     "BuildError",
     "CompilerNotFoundError",
     "Criticality",
+    "DelayError",
     "EvaluationError",
     "Evaluator",
     "HopfResult",
@@ -38,6 +40,7 @@ __all__ = [
     "Tolerances",
     "__version__",
     "compile",
+    "delayed",
     "generate",
     "load_model",
 ]

@@ -21,6 +21,15 @@ class ModelError(LyacompError):
     """
 
 
+class DelayError(ModelError):
+    """A delayed state ``x(t - tau)`` the delay-equation analysis cannot take.
+
+    Usual causes: the delay depends on a state (state-dependent delays are not
+    covered), it is negative or zero at the nominal parameter values, or something
+    other than a state is delayed.
+    """
+
+
 class DerivationError(LyacompError):
     """Symbolic derivation failed (e.g. a derivative that sympy cannot form)."""
 

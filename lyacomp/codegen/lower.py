@@ -65,6 +65,10 @@ class Lowered:
     chain: tuple[Accumulation, ...]
     critical_value: Block | None
     equilibrium: Block | None
+    n_delays: int = 0
+    """Number of distinct delays; the stacked variables number ``n * (n_delays + 1)``."""
+    delays: Block | None = None
+    """``tau[k]`` and ``tau_mu[k]`` from the parameters (delay models only)."""
 
 
 def lower_block(
@@ -91,17 +95,23 @@ def lower(der: Derivatives) -> Lowered:
     """Print every generated function body of the model."""
     model = der.model
     n = len(model.states)
+    # Stacked variables of a delay model: x[k * n + j] is state j at t - tau_k (k = 0:
+    # undelayed), so Jacobian rows have ns = n (m + 1) entries; ns = n for an ODE.
+    ns = n * (len(model.delays) + 1)
     subs: dict[sp.Symbol, sp.Symbol] = {}
     for j, s in enumerate(model.states):
         subs[s] = sp.Symbol(f"x[{j}]", real=True)
+    for k, lagged in enumerate(model.lagged):
+        for j, s in enumerate(lagged):
+            subs[s] = sp.Symbol(f"x[{(k + 1) * n + j}]", real=True)
     for k, s in enumerate(model.parameters):
         subs[s] = sp.Symbol(f"p[{k}]", real=True)
     bif_index = model.parameters.index(model.bifurcation) if model.bifurcation is not None else -1
 
     rhs_assign = [(f"f[{i}]", e) for i, e in enumerate(model.rhs)]
-    jac_assign = [(f"jac[{i * n + j}]", e) for (i, j), e in sorted(der.jacobian.items())]
+    jac_assign = [(f"jac[{i * ns + j}]", e) for (i, j), e in sorted(der.jacobian.items())]
     mu_assign = [(f"f_mu[{i}]", e) for i, e in sorted(der.f_mu.items())]
-    mu_assign += [(f"j_mu[{i * n + j}]", e) for (i, j), e in sorted(der.j_mu.items())]
+    mu_assign += [(f"j_mu[{i * ns + j}]", e) for (i, j), e in sorted(der.j_mu.items())]
     second_keys = sorted(der.second)
     third_keys = sorted(der.third)
     second_assign = [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)]
@@ -164,4 +174,15 @@ def lower(der: Derivatives) -> Lowered:
         chain=tuple(chain),
         critical_value=crit,
         equilibrium=equilibrium,
+        n_delays=len(model.delays),
+        delays=_lower_delays(der, subs),
     )
+
+
+def _lower_delays(der: Derivatives, subs: dict[sp.Symbol, sp.Symbol]) -> Block | None:
+    """The delays and their mu-derivatives as one block (None for an ODE model)."""
+    if not der.delays:
+        return None
+    assign = [(f"tau[{k}]", tau) for k, tau in enumerate(der.delays)]
+    assign += [(f"tau_mu[{k}]", d) for k, d in enumerate(der.delays_mu)]
+    return lower_block(assign, subs, "t")

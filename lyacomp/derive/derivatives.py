@@ -27,6 +27,11 @@ class Derivatives:
     ``second[(i, j, k)]`` holds d^2 F_i / dx_j dx_k for j <= k and
     ``third[(i, j, k, l)]`` holds d^3 F_i / dx_j dx_k dx_l for j <= k <= l.
     ``f_mu`` and ``j_mu`` are empty without a bifurcation parameter.
+
+    For a delay model the variables are stacked, ``(x(t), x(t - tau_1), ...)``: index
+    ``k * n + j`` is state j delayed by tau_k (k = 0 undelayed), so ``jacobian[(i, j)]``
+    holds the entries of ``[A0 A1 ... Am]``. ``delays`` holds the tau_k and
+    ``delays_mu`` their mu-derivatives (empty for an ODE model).
     """
 
     model: SymbolicModel
@@ -35,6 +40,8 @@ class Derivatives:
     j_mu: dict[Index2, sp.Expr]
     second: dict[Index3, sp.Expr]
     third: dict[Index4, sp.Expr]
+    delays: tuple[sp.Expr, ...] = ()
+    delays_mu: tuple[sp.Expr, ...] = ()
 
 
 def _diff(expr: sp.Expr, var: sp.Symbol, what: str) -> sp.Expr:
@@ -48,7 +55,7 @@ def _diff(expr: sp.Expr, var: sp.Symbol, what: str) -> sp.Expr:
 
 def derive(model: SymbolicModel) -> Derivatives:
     """Form the Jacobian, F_mu, J_mu and the second and third derivative entries."""
-    xs = model.states
+    xs = model.states + tuple(s for lagged in model.lagged for s in lagged)
     n = len(xs)
     jac: dict[Index2, sp.Expr] = {}
     second: dict[Index3, sp.Expr] = {}
@@ -85,4 +92,7 @@ def derive(model: SymbolicModel) -> Derivatives:
                 d = _diff(a, mu, f"Jacobian entry ({i}, {j})")
                 if d != 0:
                     j_mu[(i, j)] = d
-    return Derivatives(model, jac, f_mu, j_mu, second, third)
+    delays_mu = tuple(
+        _diff(tau, mu, "a delay") if mu is not None else sp.Integer(0) for tau in model.delays
+    )
+    return Derivatives(model, jac, f_mu, j_mu, second, third, model.delays, delays_mu)

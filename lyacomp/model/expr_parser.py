@@ -10,11 +10,12 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Collection, Mapping
+from typing import Protocol
 
 import sympy as sp
 
-from ..errors import ModelError
+from ..errors import DelayError, ModelError
 
 # Smooth elementary functions: name -> (arity, builder).
 _SMOOTH: dict[str, tuple[int, Callable[..., sp.Expr]]] = {
@@ -152,20 +153,40 @@ def _check_number(value: sp.Expr, fail: Callable[[str], ModelError]) -> sp.Expr:
     return value
 
 
+TIME = "t"
+"""The reserved name of time: it may appear only in a delayed state ``x(t - tau)``."""
+
+_TIME_SYMBOL = sp.Symbol("t(time)", real=True)  # no user name can contain parentheses
+
+
+class LagSink(Protocol):
+    """Where the parser sends delayed states ``x(t - tau)`` (see :mod:`.delays`)."""
+
+    states: Collection[str]
+
+    def lag(self, state: str, tau: sp.Expr) -> sp.Expr:
+        """The symbol standing for ``state(t - tau)``."""
+        ...
+
+
 class _Parser:
     """Recursive descent over tokens; loops for sums and products, recursion only on nesting."""
 
-    def __init__(self, symbols: Mapping[str, sp.Expr], where: str, text: str):
+    def __init__(
+        self, symbols: Mapping[str, sp.Expr], where: str, text: str, lags: LagSink | None = None
+    ):
         self.symbols = symbols
         self.where = where
         self.text = text
+        self.lags = lags
+        self.in_lag = 0  # > 0 while parsing the argument of a delayed state
         self.tokens = self._tokenize()
         self.i = 0
         self.depth = 0
 
-    def fail(self, pos: int | None, why: str) -> ModelError:
+    def fail(self, pos: int | None, why: str, kind: type[ModelError] = ModelError) -> ModelError:
         at = f" (at column {pos + 1})" if pos is not None else ""
-        return ModelError(f"{self.where}: {why}{at} in {quote(self.text, pos or 0)}")
+        return kind(f"{self.where}: {why}{at} in {quote(self.text, pos or 0)}")
 
     def _tokenize(self) -> list[tuple[str, str, int]]:
         tokens = []
@@ -319,6 +340,15 @@ class _Parser:
             return self.symbols[name]
         if name == "pi":
             return sp.pi
+        if name == TIME:
+            if self.in_lag:
+                return _TIME_SYMBOL
+            raise self.fail(
+                pos,
+                "'t' is time: it may appear only in a delayed state such as x(t - tau), "
+                "where tau is a constant delay",
+                DelayError,
+            )
         if name in _SMOOTH or name in _NON_SMOOTH:
             raise self.fail(pos, f"{quote_name(name)} is a function; call it with parentheses")
         if name in _CONDITIONAL_WORDS or name == "lambda":
@@ -328,7 +358,16 @@ class _Parser:
         )
 
     def call(self, name: str, pos: int) -> sp.Expr:
+        if self.lags is not None and name in self.lags.states:
+            return self.delayed_state(name, pos)
         if name in self.symbols:
+            if self.lags is not None:
+                raise self.fail(
+                    pos,
+                    f"{quote_name(name)} is a declared symbol, not a function (only states "
+                    "can be delayed, as x(t - tau))",
+                    DelayError,
+                )
             raise self.fail(pos, f"{quote_name(name)} is a declared symbol, not a function")
         if name in _NON_SMOOTH:
             raise self.fail(pos, f"{name}() is not smooth: " + _SMOOTHNESS_NOTE)
@@ -354,6 +393,37 @@ class _Parser:
         if name == "pow":
             check_power(args[0], args[1], lambda why: self.fail(pos, why))
         return _check_number(build(*args), lambda why: self.fail(pos, why))
+
+    def delayed_state(self, name: str, pos: int) -> sp.Expr:
+        """``x(t - tau)``: the state ``name`` delayed by ``tau``, which must not contain t."""
+        assert self.lags is not None
+        if TIME in self.symbols:
+            raise self.fail(
+                pos,
+                f"{quote_name(name)}(...) is a delayed state, but 't' is declared as a name of "
+                "the model; rename that symbol ('t' is reserved for time in x(t - tau))",
+                DelayError,
+            )
+        self.expect("(")
+        self.nest(pos)
+        self.in_lag += 1
+        argument = self.sum()
+        self.in_lag -= 1
+        self.expect(")")
+        self.depth -= 1
+        tau = _TIME_SYMBOL - argument
+        if _TIME_SYMBOL in tau.free_symbols:
+            tau = sp.expand(tau)  # e.g. 2*(t/2 - a): the time terms cancel only expanded
+        if _TIME_SYMBOL in tau.free_symbols or _TIME_SYMBOL not in argument.free_symbols:
+            raise self.fail(
+                pos,
+                f"the argument of the delayed state {quote_name(name)} must be t - DELAY, "
+                "with a delay that does not depend on time",
+                DelayError,
+            )
+        if tau == 0:
+            return self.symbols[name]  # x(t) is the state itself
+        return self.lags.lag(name, tau)
 
 
 _SMOOTH_CLASSES: tuple[type, ...] = (
@@ -434,11 +504,16 @@ def check_expression(expr: sp.Expr, where: str) -> sp.Expr:
 
 
 def parse_expression(
-    text: str | int | float, symbols: Mapping[str, sp.Expr], where: str
+    text: str | int | float,
+    symbols: Mapping[str, sp.Expr],
+    where: str,
+    lags: LagSink | None = None,
 ) -> sp.Expr:
     """Translate one expression string into sympy, using only the given names.
 
     ``where`` names the key the expression came from and starts every error message.
+    With ``lags``, a state called with a time argument, ``x(t - tau)``, is a delayed
+    state and becomes the symbol ``lags.lag`` returns.
     """
     if isinstance(text, bool):
         raise ModelError(f"{where}: expected an expression or a number, got {text!r}")
@@ -450,7 +525,7 @@ def parse_expression(
         raise ModelError(f"{where}: expected an expression string, got {type(text).__name__}")
     if not text.strip():
         raise ModelError(f"{where}: empty expression")
-    return _Parser(symbols, where, text).parse()
+    return _Parser(symbols, where, text, lags).parse()
 
 
 MAX_NAME_LENGTH = 63

@@ -13,6 +13,7 @@ from typing import Any
 import sympy as sp
 
 from ..errors import ModelError
+from .delays import LagTable, lag_symbol, replace_delayed
 from .expr_parser import (
     MAX_NAME_LENGTH,
     check_expression,
@@ -49,6 +50,10 @@ class SymbolicModel:
     bifurcation: sp.Symbol | None
     critical_value: sp.Expr | None
     equilibrium: tuple[sp.Expr, ...] | None
+    delays: tuple[sp.Expr, ...] = ()
+    """The distinct delays ``tau_k`` (expressions of the parameters), empty for an ODE."""
+    lagged: tuple[tuple[sp.Symbol, ...], ...] = ()
+    """``lagged[k][j]`` is the symbol in ``rhs`` that stands for state j at ``t - tau_k``."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -87,6 +92,11 @@ class Model:
             raise ModelError(f"{self.source}: the model needs a non-empty 'name'")
         self._check_names()
         object.__setattr__(self, "_symbolic", self._build_symbolic())
+        if len(self.states) < 2 and not self._symbolic.delays:
+            raise ModelError(
+                f"{self.source}: a Hopf bifurcation needs at least 2 states, got "
+                f"{len(self.states)} (one state suffices only with a delayed term x(t - tau))"
+            )
 
     # -- validation -------------------------------------------------------------------
     def _names_to_floats(self, table: Mapping[str, Any], key: str) -> dict[str, float]:
@@ -99,10 +109,8 @@ class Model:
 
     def _check_names(self) -> None:
         src = self.source
-        if len(self.states) < 2:
-            raise ModelError(
-                f"{src}: a Hopf bifurcation needs at least 2 states, got {len(self.states)}"
-            )
+        if not self.states:
+            raise ModelError(f"{src}: a Hopf bifurcation needs at least 2 states, got 0")
         if len(self.states) > MAX_STATES:
             raise ModelError(
                 f"{src}: {len(self.states)} states; lyacomp's dense kernels handle at most "
@@ -165,18 +173,29 @@ class Model:
                     )
 
     # -- symbolic form ----------------------------------------------------------------
-    def _parse(self, value: Any, symbols: Mapping[str, sp.Expr], where: str) -> sp.Expr:
+    def _parse(
+        self,
+        value: Any,
+        symbols: Mapping[str, sp.Expr],
+        where: str,
+        lags: LagTable | None = None,
+    ) -> sp.Expr:
         if isinstance(value, sp.Basic):
             expr = value  # already a sympy object: no text is parsed here
+            made: set[str] = set()
+            if lags is not None:
+                expr, made = replace_delayed(expr, lags, symbols, where)
             check_expression(expr, where)
-            unknown = {str(s) for s in expr.free_symbols} - set(symbols)
+            unknown = {str(s) for s in expr.free_symbols} - set(symbols) - made
             if unknown:
                 shown = ", ".join(quote(u) for u in sorted(unknown)[:5])
                 raise ModelError(f"{where}: unknown symbol(s) {shown}")
             # Map the caller's symbols (possibly with assumptions) onto ours.
-            expr = expr.xreplace({s: symbols[str(s)] for s in expr.free_symbols})
+            expr = expr.xreplace(
+                {s: symbols[str(s)] for s in expr.free_symbols if str(s) in symbols}
+            )
         else:
-            expr = parse_expression(value, symbols, where)
+            expr = parse_expression(value, symbols, where, lags.at(where) if lags else None)
         return check_expression(expr, where)
 
     def _build_symbolic(self) -> SymbolicModel:
@@ -186,8 +205,9 @@ class Model:
         defs = {n: sp.Dummy(n) for n in self.definitions}
         base = {**states, **params}
         names = {**base, **defs}
+        lags = LagTable(states)
         raw_defs = {
-            n: self._parse(v, names, f"{src}: [definitions] {n}")
+            n: self._parse(v, names, f"{src}: [definitions] {n}", lags)
             for n, v in self.definitions.items()
         }
         resolved = _resolve_definitions(raw_defs, defs, src)
@@ -196,9 +216,12 @@ class Model:
             return expr.xreplace(resolved) if resolved else expr
 
         rhs = tuple(
-            subst(self._parse(self.equations[n], names, f"{src}: [equations] {n}"))
+            subst(self._parse(self.equations[n], names, f"{src}: [equations] {n}", lags))
             for n in self.states
         )
+        delays, placeholders = lags.finish(subst, params, self.nominal, src)
+        rhs = tuple(e.xreplace(placeholders) for e in rhs)
+        lagged = tuple(tuple(lag_symbol(n, k) for n in self.states) for k in range(len(delays)))
         bif = params[self.bifurcation] if self.bifurcation else None
         crit = None
         if self.critical_value is not None:
@@ -218,12 +241,20 @@ class Model:
         for expr, where in [(e, f"[equations] {n}") for n, e in zip(self.states, rhs)]:
             if expr.has(sp.zoo, sp.nan, sp.oo, -sp.oo):
                 raise ModelError(f"{src}: {where} simplifies to an infinite or undefined value")
-        return SymbolicModel(tuple(states.values()), tuple(params.values()), rhs, bif, crit, eq)
+        return SymbolicModel(
+            tuple(states.values()), tuple(params.values()), rhs, bif, crit, eq, delays, lagged
+        )
 
     # -- public views -----------------------------------------------------------------
     def symbolic(self) -> SymbolicModel:
         """The model as sympy expressions (definitions substituted)."""
         return self._symbolic
+
+    @property
+    def delays(self) -> tuple[sp.Expr, ...]:
+        """The distinct delays ``tau_k`` as sympy expressions of the parameter symbols
+        (empty for an ODE model); see :attr:`SymbolicModel.lagged` for the delayed states."""
+        return self._symbolic.delays
 
     @property
     def state_names(self) -> tuple[str, ...]:
@@ -259,6 +290,8 @@ class Model:
             else None,
             "equilibrium": [sp.srepr(e) for e in sym.equilibrium] if sym.equilibrium else None,
         }
+        if sym.delays:  # absent for ODE models, whose keys stay as they were
+            doc["delays"] = [sp.srepr(d) for d in sym.delays]
         return json.dumps(doc, sort_keys=True)
 
     def fingerprint(self) -> str:
