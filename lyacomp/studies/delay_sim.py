@@ -41,8 +41,8 @@ from lyacomp.errors import InternalError, StudyError
 
 Rhs = Callable[[float, np.ndarray, tuple[np.ndarray, ...]], np.ndarray]
 History = Callable[[float], np.ndarray]
-#: Called after every accepted step with (t, x); a non-None label stops the run.
-StopCondition = Callable[[float, np.ndarray], "str | None"]
+#: Called after every accepted step with (t, x, x'); a non-None label stops the run.
+StopCondition = Callable[[float, np.ndarray, np.ndarray], "str | None"]
 
 # Dormand-Prince 5(4): nodes, stage coefficients, fifth-order weights (also the last
 # stage, evaluated at t + h: first same as last), and the weights of the error estimate
@@ -224,8 +224,8 @@ def integrate_delay(
 
     ``delayed`` is a tuple with ``x(t - tau_k)`` for every ``tau_k`` in ``delays`` (in that
     order). ``history`` is a constant state or a callable ``phi(s)`` for ``s <= t0``; the
-    solution starts at ``x(t0) = phi(t0)``. ``stop(t, x)`` is asked after every accepted
-    step; a label it returns ends the run (``status`` 1, ``stopped_by`` the label).
+    solution starts at ``x(t0) = phi(t0)``. ``stop(t, x, dxdt)`` is asked after every
+    accepted step; a label it returns ends the run (``status`` 1, ``stopped_by`` the label).
     ``status`` is 0 when ``t_end`` was reached and -1 when the step size collapsed, the
     state stopped being finite or ``max_steps`` was exceeded (``message`` says which).
     """
@@ -320,7 +320,7 @@ def integrate_delay(
             xs.append(y.copy())
             factor = MAX_FACTOR if err == 0 else min(MAX_FACTOR, SAFETY * err ** (-1 / ORDER))
             h = min(max(step, h) * factor, max_step) if landing else min(step * factor, max_step)
-            label = stop(t, y) if stop is not None else None
+            label = stop(t, y, k1) if stop is not None else None
             if label is not None:
                 return _finish(ts, xs, 1, f"stopped: {label}", label, nfev, rejected, bps, past)
         else:

@@ -243,8 +243,11 @@ def test_callable_history_continued_exactly(t0):
 def test_stop_condition_ends_the_run():
     # x' = -x(t-1) from 1 decays (principal root -0.318 +- 1.337i, Asl & Ulsoy 2003);
     # a stop condition on |x| < 0.05 fires on the way
-    def small(_t, x):
-        return "small" if abs(x[0]) < 0.05 and _t > 1.0 else None
+    def small(t, x, rate):
+        assert rate == pytest.approx(-sol_ref.sol(t - 1.0), abs=1e-6)  # x'(t) = -x(t - 1)
+        return "small" if abs(x[0]) < 0.05 and t > 1.0 else None
+
+    sol_ref = integrate_delay(lambda _t, _x, d: -d[0], (1.0,), [1.0], (0.0, 100.0))
 
     sol = integrate_delay(lambda _t, _x, d: -d[0], (1.0,), [1.0], (0.0, 100.0), stop=small)
     assert sol.status == 1 and sol.stopped_by == "small"
