@@ -27,7 +27,7 @@ from .build import (
 from .codegen import CSources, lower, render, templates_digest_input
 from .config import BuildConfig
 from .derive import derive
-from .errors import BuildError, DelayError, LyacompError
+from .errors import BuildError, LyacompError
 from .model import Model, load_model
 from .runtime import Evaluator, Tolerances
 from .runtime.evaluator import PREFIX, register_rebuild
@@ -69,8 +69,6 @@ def generate(
     model: Model, key: str = "0" * 64, prefix: str = PREFIX, header_name: str = "model.h"
 ) -> CSources:
     """Derive and render the C sources of a model (no compilation)."""
-    if model.delays:
-        raise DelayError(f"{model.source}: compiling delay models is not wired in yet")
     derivatives = derive(model.symbolic())
     lowered = lower(derivatives)
     return render(model, lowered, prefix=prefix, key=key, header_name=header_name)

@@ -22,10 +22,16 @@ class Status(IntEnum):
     NOT_CRITICAL = 8  # no bifurcation parameter and the given point is not at onset
     RESONANCE = 9  # 2 i omega is also an eigenvalue (1:2 resonance)
     EXTRA_CRITICAL_EIGENVALUE = 10  # more eigenvalues on the imaginary axis, or a non-simple pair
+    NONPOSITIVE_DELAY = 11  # a delay of the model is zero or negative at these parameters
 
     @property
     def label(self) -> str:
         return self.name.lower()
+
+    @property
+    def delay_only(self) -> bool:
+        """Reached only by delay models (the ODE kernel does not list it)."""
+        return self is Status.NONPOSITIVE_DELAY
 
     @property
     def explanation(self) -> str:
@@ -61,6 +67,10 @@ _EXPLANATIONS = {
         "closed-form critical value, that value does not put the equilibrium at onset"
     ),
     Status.RESONANCE: "2*i*omega is also an eigenvalue (1:2 resonance); l1 is not defined",
+    Status.NONPOSITIVE_DELAY: (
+        "a delay tau of the model is zero or negative at these parameter values (or at the "
+        "critical value found); the delay-equation analysis needs tau > 0"
+    ),
     Status.EXTRA_CRITICAL_EIGENVALUE: (
         "further eigenvalues lie on the imaginary axis or the pair is not simple; "
         "l1 alone does not decide the onset"

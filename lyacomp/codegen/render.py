@@ -107,7 +107,7 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         "state_names": state_names,
         "param_names": param_names,
         "state_guess": [repr(float(v)) for v in model.states.values()],
-        "statuses": [(int(s), s.label) for s in Status],
+        "statuses": [(int(s), s.label) for s in Status if lowered.n_delays or not s.delay_only],
         "f_jac": lowered.f_jac,
         "linear": lowered.linear,
         "curvature": lowered.curvature,
@@ -123,8 +123,13 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         # n <= 3: the Hopf point solves a reduced system (trace or Routh-Hurwitz) and the
         # spectrum follows in closed form, so no eigenvalue routine is needed.
         "reduced": lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 3,
+        "n_delays": lowered.n_delays,
     }
-    source = env.get_template("model.c.j2")
+    if lowered.n_delays:
+        # Delay models: their own model functions and Hopf stages (characteristic matrix),
+        # sharing linear algebra, Newton, results and the driver with the ODE kernel.
+        context.update(delays=lowered.delays, reduced=True)
+    source = env.get_template("delay_model.c.j2" if lowered.n_delays else "model.c.j2")
     return CSources(
         embedded=source.render(standalone=False, **context),
         standalone=source.render(standalone=True, **context),
