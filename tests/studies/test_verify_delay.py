@@ -123,3 +123,15 @@ def test_subcritical_cubic_delay_feedback_brackets_the_unstable_cycle():
     outcomes = {run.label: run.outcome for run in check.runs}
     assert outcomes == {"inside": "returned", "outside": "escaped"}
     assert check.agrees
+
+
+def test_compiled_wright_predictions_agree_with_the_simulation():
+    # the same published case (Hassard, Kazarinoff & Wan 1981), now with the compiled
+    # evaluator's predictions and from a model file's syntax
+    model = scalar_model("-r*x(t - 1)*(1 + x)")
+    check = check_by_simulation(model, growth=0.01)
+    assert check.critical_value == pytest.approx(PI / 2, rel=1e-9)
+    assert check.predicted_period == pytest.approx(4.0, rel=1e-9)
+    assert check.measured is not None and check.measured.settled
+    assert abs(check.amplitude_error[0]) < 0.05, check.to_dict()
+    assert check.agrees
