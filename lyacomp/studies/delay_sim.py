@@ -48,13 +48,16 @@ StopCondition = Callable[[float, np.ndarray, np.ndarray], "str | None"]
 # stage, evaluated at t + h: first same as last), and the weights of the error estimate
 # (fifth- minus fourth-order solution).
 _C = np.array([0.0, 1 / 5, 3 / 10, 4 / 5, 8 / 9, 1.0])
-_A = (
-    (),
-    (1 / 5,),
-    (3 / 40, 9 / 40),
-    (44 / 45, -56 / 15, 32 / 9),
-    (19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729),
-    (9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656),
+_A = tuple(
+    np.array(row)
+    for row in (
+        (),
+        (1 / 5,),
+        (3 / 40, 9 / 40),
+        (44 / 45, -56 / 15, 32 / 9),
+        (19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729),
+        (9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656),
+    )
 )
 _B = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84])
 _E = np.array([71 / 57600, 0.0, -71 / 16695, 71 / 1920, -17253 / 339200, 22 / 525, -1 / 40])
@@ -277,7 +280,7 @@ def integrate_delay(
         y_last = None
         for _ in range(passes):
             for i in range(1, 6):
-                yi = y + h * (np.asarray(_A[i]) @ K[:i])
+                yi = y + h * (_A[i] @ K[:i])
                 K[i] = f(t + _C[i] * h, yi)
             y_new = y + h * (_B @ K[:6])
             K[6] = f(t + h, y_new)
@@ -303,7 +306,7 @@ def integrate_delay(
         goal = targets[target]
         # land exactly on the next breaking point (or t_end); stretch a step that would
         # stop just short of it instead of leaving a sliver
-        landing = t + h >= goal or goal - (t + h) < 0.05 * h
+        landing = t + h >= goal or (goal - (t + h) < 0.05 * h and goal - t <= max_step)
         step = goal - t if landing else h
         y_new, K, err_vec, agreed = attempt(step)
         err = scaled_norm(err_vec, y, y_new) if agreed else math.inf

@@ -138,6 +138,25 @@ def test_wright_equation_against_chain_ode(r):
     assert sol.sol(grid)[0] == pytest.approx(expected, abs=1e-9)
 
 
+def test_hutchinson_logistic_against_chain_ode():
+    # Hutchinson's delayed logistic equation N' = r N(t) (1 - N(t - 1)) (Hutchinson 1948;
+    # from memory) with a sloped history, against the ODE chain of the method of steps
+    r = 1.4
+
+    def f(n, d):
+        return r * n * (1.0 - d[0])
+
+    def history(s):
+        return np.array([1.3 + 0.1 * s])
+
+    ref = _chain_reference(f, 1, (1,), history, 6)
+    sol = integrate_delay(
+        lambda _t, n, d: f(n, d), (1.0,), history, (0.0, 6.0), rtol=1e-11, atol=1e-14
+    )
+    grid = np.linspace(0.0, 6.0, 49)
+    assert sol.sol(grid)[0] == pytest.approx([ref(s)[0] for s in grid], abs=1e-9)
+
+
 def test_two_states_two_delays_against_chain_ode():
     # a 2-state system with delays 1 and 2 and a smooth non-constant history
     def f(x, d):
