@@ -42,6 +42,7 @@ from lyacomp.studies.verify import (
     NumericModel,
     SimulationCheck,
     SimulationRun,
+    _samples,
     find_equilibrium,
     measure_cycle,
 )
@@ -53,8 +54,6 @@ ATOL_FRACTION = 1e-8
 #: Newton on the critical root: iterations and relative step size that counts as converged.
 ROOT_STEPS = 50
 ROOT_TOL = 1e-13
-PLOT_PER_PERIOD = 24
-PLOT_MAX_SAMPLES = 250_000
 
 
 @dataclass(frozen=True)
@@ -197,15 +196,6 @@ def _integrate(ndm, history, t_end: float, scale: float, stop=None) -> DelaySolu
             "model's domain: try a smaller offset or growth"
         )
     return sol
-
-
-def _samples(sol: DelaySolution, t_end: float, period: float) -> tuple[np.ndarray, np.ndarray]:
-    """Plot samples as in the ODE check: PLOT_PER_PERIOD per period, 400 on the last two."""
-    n = int(min(max(6000, PLOT_PER_PERIOD * t_end / period), PLOT_MAX_SAMPLES))
-    t = np.union1d(
-        np.linspace(0.0, t_end, n), np.linspace(max(0.0, t_end - 2 * period), t_end, 400)
-    )
-    return t, sol.sol(t).T
 
 
 def run_delay_check(
