@@ -98,9 +98,10 @@ def _rightmost_pair(ev: Evaluator, x: np.ndarray, p: np.ndarray) -> float:
 
 
 def scan_for_hopf(ev: Evaluator, values: Mapping[str, float]) -> ScanOutcome | None:
-    """Scan the bifurcation parameter around its starting guess (None without one)."""
+    """Scan the bifurcation parameter around its starting guess (None without one, and for
+    delay models: their spectrum is not the eigenvalues of one matrix)."""
     mu = ev.bifurcation
-    if mu is None:
+    if mu is None or ev.model.delays:
         return None
     params = {**ev.nominal, **values}
     if mu not in values and ev.model.guess is not None:

@@ -70,9 +70,7 @@ class MpDelay:
         v = self.stacked
         self.jac = [[sp.diff(fi, a) for a in v] for fi in self.f]
         self.d2 = [[[sp.diff(fi, a, b) for b in v] for a in v] for fi in self.f]
-        self.d3 = [
-            [[[sp.diff(fi, a, b, c) for c in v] for b in v] for a in v] for fi in self.f
-        ]
+        self.d3 = [[[[sp.diff(fi, a, b, c) for c in v] for b in v] for a in v] for fi in self.f]
 
     # -- evaluation helpers ----------------------------------------------------------
     def _subs(self, x, values):
@@ -178,7 +176,10 @@ class MpDelay:
         for k in range(m):
             a_k = blocks[k + 1]
             integrand = lambda xi, k=k, a_k=a_k: sum(  # noqa: E731
-                left[i] * mpmath.exp(-lam * (xi + taus[k])) * a_k[i, j] * q[j]
+                left[i]
+                * mpmath.exp(-lam * (xi + taus[k]))
+                * a_k[i, j]
+                * q[j]
                 * mpmath.exp(lam * xi)
                 for i in range(n)
                 for j in range(n)
@@ -262,7 +263,6 @@ def chebyshev_unstable_count(blocks, taus, points: int = 60, threshold: float = 
     tau_max = max(taus)
     k = np.arange(points + 1)
     nodes = np.cos(np.pi * k / points)  # Chebyshev points on [-1, 1], from 1 to -1
-    theta = tau_max * (nodes - 1.0) / 2.0  # on [-tau_max, 0], theta_0 = 0
     c = np.where((k == 0) | (k == points), 2.0, 1.0) * (-1.0) ** k
     diff = nodes[:, None] - nodes[None, :] + np.eye(points + 1)
     dmat = np.outer(c, 1.0 / c) / diff
