@@ -34,24 +34,45 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
     plane = order[:2]
     rows = len(shown)
     fig = plt.figure(figsize=(11, 2.1 * rows + 1.6), layout="constrained")
-    grid = fig.add_gridspec(rows, 2, width_ratios=[1.6, 1])
+    # one state (a scalar delay equation) has no phase plane: the time series only
+    columns = 2 if len(plane) == 2 else 1
+    grid = fig.add_gridspec(rows, columns, width_ratios=[1.6, 1][:columns])
     axes = [fig.add_subplot(grid[i, 0]) for i in range(rows)]
     for ax in axes[1:]:
         ax.sharex(axes[0])
-    phase = fig.add_subplot(grid[:, 1])
 
     for row, j in enumerate(shown):
         ax = axes[row]
         # the outside run is drawn first: the (smaller) inside run stays visible on top
         for run in reversed(check.runs):
-            ax.plot(run.t, run.x[:, j] - check.equilibrium[j], color=RUN_COLOURS[run.label], lw=0.6)
+            ax.plot(
+                run.t,
+                run.x[:, j] - check.equilibrium[j],
+                color=RUN_COLOURS[run.label],
+                lw=0.6,
+                label=_RUN_WORDS[(check.criticality, run.label)],
+            )
         amp = check.predicted_amplitude[j]
         for sign in (1, -1):
             ax.axhline(sign * amp, color=PREDICTION_COLOUR, ls="--", lw=1.0)
         ax.set_ylabel(f"{check.state_names[j]} - equilibrium")
     axes[-1].set_xlabel("time")
     axes[0].set_title("time series (dashed: predicted amplitude)", fontsize=10)
+    if columns == 2:
+        handles = _phase_portrait(fig.add_subplot(grid[:, 1]), check, plane)
+        fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=8, frameon=False)
+    else:
+        fig.legend(loc="outside lower center", ncol=2, fontsize=8, frameon=False)
 
+    fig.suptitle(_title(check), fontsize=10)
+    path = Path(path)
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return path
+
+
+def _phase_portrait(phase, check: SimulationCheck, plane: np.ndarray) -> list:
+    """The runs and the predicted cycle in the plane of the two most active states."""
     handles = []
     settled = check.criticality == "supercritical"
     for run in check.runs:
@@ -93,13 +114,7 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
     phase.set_xlabel(check.state_names[plane[0]])
     phase.set_ylabel(check.state_names[plane[1]])
     phase.set_title("phase portrait of the two most active states", fontsize=10)
-    fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=8, frameon=False)
-
-    fig.suptitle(_title(check), fontsize=10)
-    path = Path(path)
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return path
+    return handles
 
 
 def _title(check: SimulationCheck) -> str:

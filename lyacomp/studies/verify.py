@@ -88,6 +88,8 @@ MAX_PERIODS = 20000
 #: Relative change of the amplitude between the two windows below which the cycle
 #: counts as settled.
 SETTLED_DRIFT = 1e-3
+#: Agreement bound of the measured amplitude for delay models (issue 9 asks for 5%).
+DELAY_AMPLITUDE_TOLERANCE = 0.05
 PLOT_SAMPLES = 6000
 PLOT_PER_PERIOD = 24
 PLOT_MAX_SAMPLES = 250_000
@@ -152,6 +154,8 @@ class SimulationCheck:
     predicted_cycle: np.ndarray = field(repr=False)
     runs: list[SimulationRun] = field(default_factory=list)
     measured: CycleMeasurement | None = None
+    #: Largest relative amplitude error that counts as agreement (supercritical).
+    amplitude_tolerance: float = 0.1
 
     @property
     def offset(self) -> float:
@@ -173,17 +177,17 @@ class SimulationCheck:
 
     @property
     def agrees(self) -> bool:
-        """Supercritical: settled on a cycle whose largest amplitude is within 10% of the
-        prediction and whose period is within PERIOD_TOLERANCE of the compiled one.
-        Subcritical: the inner run returned and the outer run escaped or grew onto a
-        larger oscillation."""
+        """Supercritical: settled on a cycle whose largest amplitude is within
+        ``amplitude_tolerance`` (10%; 5% for delay models) of the prediction and whose period
+        is within PERIOD_TOLERANCE of the compiled one. Subcritical: the inner run returned
+        and the outer run escaped or grew onto a larger oscillation."""
         if self.criticality == "supercritical":
             if self.measured is None or not self.measured.settled:
                 return False
             main = int(np.argmax(self.predicted_amplitude))
             period_error = self.period_error
             return (
-                abs(self.amplitude_error[main]) < 0.1
+                abs(self.amplitude_error[main]) < self.amplitude_tolerance
                 and period_error is not None
                 and abs(period_error) < PERIOD_TOLERANCE
             )
@@ -436,6 +440,34 @@ def check_by_simulation(
         if mu0 != 0:
             delta = side * min(abs(delta), MAX_RELATIVE_OFFSET * abs(mu0))
     values = {**ev.nominal, **overrides, ev.bifurcation: mu0 + delta}
+    predicted = np.array([res.amplitude[s] for s in model.state_names]) * math.sqrt(abs(delta))
+    period = res.period  # the compiled period, 2 pi / omega (the result being checked)
+    rate = 2 * abs(d * delta)
+    settle = SETTLE_EFOLDS / rate
+    if settle / period > MAX_PERIODS:
+        raise StudyError(
+            f"the cycle would take about {settle / period:.0f} periods to settle at offset "
+            f"{abs(delta):.3g}; use a larger offset"
+        )
+    if model.delays:
+        from lyacomp.studies.verify_delay import run_delay_check
+
+        unset = np.full(len(model.state_names), math.nan)
+        check = SimulationCheck(
+            model=model.name,
+            criticality=res.criticality,
+            bifurcation=ev.bifurcation,
+            critical_value=mu0,
+            value=mu0 + delta,
+            parameters={k: float(v) for k, v in values.items()},
+            state_names=tuple(model.state_names),
+            equilibrium=unset,
+            predicted_amplitude=predicted,
+            predicted_period=period,
+            predicted_cycle=unset[None, :],
+            amplitude_tolerance=DELAY_AMPLITUDE_TOLERANCE,
+        )
+        return run_delay_check(model, check, values, res, delta, settle)
     nm = numeric_model(model, values)
     guess = np.array([res.equilibrium[s] for s in nm.state_names], float)
     eq = find_equilibrium(nm, guess)
@@ -446,15 +478,6 @@ def check_by_simulation(
     theta = np.linspace(0.0, 2 * math.pi, 400)
     cycle = eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q))
     radius = 2 * w
-    predicted = np.array([res.amplitude[s] for s in nm.state_names]) * math.sqrt(abs(delta))
-    period = res.period  # the compiled period, 2 pi / omega (the result being checked)
-    rate = 2 * abs(d * delta)
-    settle = SETTLE_EFOLDS / rate
-    if settle / period > MAX_PERIODS:
-        raise StudyError(
-            f"the cycle would take about {settle / period:.0f} periods to settle at offset "
-            f"{abs(delta):.3g}; use a larger offset"
-        )
     check = SimulationCheck(
         model=model.name,
         criticality=res.criticality,

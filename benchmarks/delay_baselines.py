@@ -1,0 +1,385 @@
+"""Baselines for delay models: the math of docs/mathematics.md ("Delay equations") written
+directly in numpy (vectorized over samples) and as a per-sample scipy loop.
+
+Both start from sympy expressions written here, not from lyacomp's derivation:
+``F(x, z_1, ..., z_m, p)`` with ``z_k`` standing for ``x(t - tau_k)`` and the delays
+``tau_k(p)``. At the equilibrium every ``z_k`` equals ``x``. The Hopf point solves the real
+augmented system in ``(x, mu, v_r, v_i, omega)``
+
+    F(x, x, ..., x) = 0,   Re, Im of Delta(i omega) v = 0,   c . v_r = 1,   c . v_i = 0
+
+with ``Delta(l) = l I - A0 - sum_k A_k exp(-l tau_k)``; then ``q = v / |v|``, ``p`` spans the
+null space of ``Delta(i omega)^H`` with ``<p, Delta'(i omega) q> = 1``, and
+
+    c1 = 1/2 <p, C(Q, Q, conj Q) + 2 B(Q, E(0) Delta(0)^-1 B(Q, conj Q))
+                                 + B(conj Q, E(2 i omega) Delta(2 i omega)^-1 B(Q, Q))>
+
+``l1 = Re c1 / omega``; ``d = Re <p, J_mu Q + B(E(0) x0', Q) - i omega sum tau_k' e^{-i omega
+tau_k} A_k q>`` with ``x0' = Delta(0)^-1 F_mu``; amplitudes ``2 |q_j| sqrt(|d / (omega l1)|)``.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.optimize
+import sympy
+from b1_numpy import Packed
+
+NEWTON_MAX_STEPS = 40
+NEWTON_TOL = 1e-13
+
+
+@dataclass(frozen=True)
+class DelayModel:
+    """A delay model as sympy: states, parameters, right-hand sides in (x, z_k, p), delays."""
+
+    states: tuple[sympy.Symbol, ...]
+    parameters: tuple[sympy.Symbol, ...]
+    delayed: tuple[tuple[sympy.Symbol, ...], ...]
+    rhs: tuple[sympy.Expr, ...]
+    delays: tuple[sympy.Expr, ...]
+    bifurcation: str
+
+
+class DelaySymbols:
+    """The symbolic pieces both baselines lambdify."""
+
+    def __init__(self, dm: DelayModel):
+        x, p = list(dm.states), list(dm.parameters)
+        n, m = len(x), len(dm.delays)
+        self.n, self.m = n, m
+        self.mu_index = [str(s) for s in p].index(dm.bifurcation)
+        mu = p[self.mu_index]
+        stacked = x + [s for block in dm.delayed for s in block]
+        at_eq = {z: x[i] for block in dm.delayed for i, z in enumerate(block)}
+        F = sympy.Matrix(dm.rhs)
+        Js = F.jacobian(stacked)
+        self.xp = x + p
+        self.F = F.xreplace(at_eq)
+        self.blocks = [Js[:, k * n : (k + 1) * n].xreplace(at_eq) for k in range(m + 1)]
+        self.F_mu = F.diff(mu).xreplace(at_eq)
+        self.J_mu = Js.diff(mu).xreplace(at_eq)
+        self.tau = sympy.Matrix(dm.delays)
+        self.tau_mu = self.tau.diff(mu)
+        size = n * (m + 1)
+        self.U = [sympy.Symbol(f"bench_U{i}") for i in range(size)]
+        self.V = [sympy.Symbol(f"bench_V{i}") for i in range(size)]
+        self.W = [sympy.Symbol(f"bench_W{i}") for i in range(size)]
+        self.B, self.C = self._forms(F, stacked, at_eq)
+        # the augmented Hopf system and its Jacobian in (x, mu, v_r, v_i, omega)
+        vr = sympy.Matrix([sympy.Symbol(f"bench_vr{i}") for i in range(n)])
+        vi = sympy.Matrix([sympy.Symbol(f"bench_vi{i}") for i in range(n)])
+        c = sympy.Matrix([sympy.Symbol(f"bench_c{i}") for i in range(n)])
+        om = sympy.Symbol("bench_omega")
+        A0 = self.blocks[0]
+        re = -om * vi - A0 * vr
+        im = om * vr - A0 * vi
+        for k in range(m):
+            cos, sin = sympy.cos(om * self.tau[k]), sympy.sin(om * self.tau[k])
+            re -= self.blocks[k + 1] * (cos * vr + sin * vi)
+            im -= self.blocks[k + 1] * (cos * vi - sin * vr)
+        G = sympy.Matrix([*self.F, *re, *im, (c.T * vr)[0] - 1, (c.T * vi)[0]])
+        unknowns = x + [mu] + list(vr) + list(vi) + [om]
+        self.system_args = self.xp + list(vr) + list(vi) + [om] + list(c)
+        self.G = G
+        self.DG = G.jacobian(unknowns)
+
+    def _forms(self, F, stacked, at_eq):
+        """B(U, V) and C(U, V, W) on the stacked arguments, non-zero entries only."""
+        n = self.n
+        b_terms: list[list] = [[] for _ in range(n)]
+        c_terms: list[list] = [[] for _ in range(n)]
+        for i in range(n):
+            deps = [a for a, s in enumerate(stacked) if s in F[i].free_symbols]
+            for pos, a in enumerate(deps):
+                da = F[i].diff(stacked[a])
+                for pos_b, b in enumerate(deps[pos:], start=pos):
+                    dab = da.diff(stacked[b])
+                    if dab == 0:
+                        continue
+                    pairs = {(a, b), (b, a)}
+                    b_terms[i].append(
+                        dab.xreplace(at_eq) * sum(self.U[r] * self.V[s] for r, s in pairs)
+                    )
+                    for c in deps[pos_b:]:
+                        dabc = dab.diff(stacked[c])
+                        if dabc == 0:
+                            continue
+                        triples = set(itertools.permutations((a, b, c)))
+                        term = sum(self.U[r] * self.V[s] * self.W[t] for r, s, t in triples)
+                        c_terms[i].append(dabc.xreplace(at_eq) * term)
+        return [sympy.Add(*t) for t in b_terms], [sympy.Add(*t) for t in c_terms]
+
+
+def _cols(a: np.ndarray) -> list[np.ndarray]:
+    return [a[:, i] for i in range(a.shape[1])]
+
+
+def _dot(p: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """<p, y> = sum conj(p_i) y_i per sample."""
+    return np.einsum("ni,ni->n", p.conj(), y)
+
+
+class VectorizedDelayHopf:
+    """The numpy baseline: every step on arrays of samples (batched solves, einsum)."""
+
+    def __init__(self, ds: DelaySymbols):
+        self.ds = ds
+        n, m = ds.n, ds.m
+        size = n * (m + 1)
+        xp = ds.xp
+        self.F_mu = Packed(ds.F_mu, xp, (n,))
+        self.blocks = Packed([e for blk in ds.blocks for e in blk], xp, (m + 1, n, n))
+        self.J_mu = Packed(ds.J_mu, xp, (n, size))
+        self.tau = Packed(list(ds.tau) + list(ds.tau_mu), ds.xp, (2, m))
+        self.B = Packed(ds.B, xp + ds.U + ds.V, (n,), complex)
+        self.C = Packed(ds.C, xp + ds.U + ds.V + ds.W, (n,), complex)
+        self.G = Packed(ds.G, ds.system_args, (3 * n + 2,))
+        self.DG = Packed(ds.DG, ds.system_args, (3 * n + 2, 3 * n + 2))
+        self.start: np.ndarray | None = None
+        self.c: np.ndarray | None = None
+
+    def prepare(self, nominal: np.ndarray, start: np.ndarray) -> None:
+        """``start`` = (x, mu, v_r, v_i, omega) near the nominal Hopf point; solved once
+        outside the timing so every sample starts from the nominal solution."""
+        n = self.ds.n
+        self.c = start[n + 1 : 2 * n + 1] / np.dot(
+            start[n + 1 : 2 * n + 1], start[n + 1 : 2 * n + 1]
+        )
+        self.start = start.astype(float)
+        ok, z = self._newton(nominal[None, :].astype(float))
+        if not ok[0]:
+            raise RuntimeError("numpy baseline: Newton failed at the nominal parameters")
+        self.start = z[0]
+
+    def _newton(self, p: np.ndarray):
+        n, N, k = self.ds.n, len(p), self.ds.mu_index
+        z = np.tile(self.start, (N, 1))
+        p = p.copy()
+        c = np.tile(self.c, (N, 1))
+        done = np.zeros(N, dtype=bool)
+        for _ in range(NEWTON_MAX_STEPS):
+            p[:, k] = z[:, n]
+            args = _cols(z[:, :n]) + _cols(p) + _cols(z[:, n + 1 :]) + _cols(c)
+            G, DG = self.G(args, N), self.DG(args, N)
+            with np.errstate(all="ignore"):
+                dz = np.linalg.solve(DG, -G[..., None])[..., 0]
+            z += dz
+            size = np.max(np.abs(dz) / (1.0 + np.abs(z)), axis=1)
+            done = size < NEWTON_TOL
+            if np.all(done | ~np.isfinite(size)):
+                break
+        # omega = 0 with mu making Delta(0) v = 0 also solves the system: not a Hopf point
+        return done & np.all(np.isfinite(z), axis=1) & (z[:, 3 * n + 1] > 0), z
+
+    def solve(self, params: np.ndarray) -> dict[str, np.ndarray]:
+        """All samples at once; ``params`` is (N, m) in model order (mu column ignored)."""
+        ds = self.ds
+        n, N = ds.n, len(params)
+        ok, z = self._newton(params.astype(float))
+        p = params.astype(float, copy=True)
+        p[:, ds.mu_index] = z[:, n]
+        out = {
+            "ok": ok,
+            "l1": np.full(N, np.nan),
+            "omega": np.full(N, np.nan),
+            "critical_value": np.full(N, np.nan),
+            "transversality": np.full(N, np.nan),
+            "equilibrium": np.full((N, n), np.nan),
+            "amplitude": np.full((N, n), np.nan),
+        }
+        for key, value in self._quantities(z[ok], p[ok]).items():
+            out[key][ok] = value
+        return out
+
+    def _quantities(self, z: np.ndarray, p: np.ndarray) -> dict[str, np.ndarray]:
+        """l1 and the derived quantities at converged Hopf points (rows of z)."""
+        ds = self.ds
+        n, m, N = ds.n, ds.m, len(z)
+        x0, omega = z[:, :n], z[:, 3 * n + 1]
+        xp = _cols(x0) + _cols(p)
+        A = self.blocks(xp, N)  # (N, m+1, n, n)
+        taus = self.tau(xp, N)
+        tau, tau_mu = taus[:, 0], taus[:, 1]
+        eye = np.eye(n)
+
+        def delta(lam: np.ndarray) -> np.ndarray:
+            out = lam[:, None, None] * eye - A[:, 0]
+            for k in range(m):
+                out = out - A[:, k + 1] * np.exp(-lam * tau[:, k])[:, None, None]
+            return out
+
+        iw = 1j * omega
+        v = z[:, n + 1 : 2 * n + 1] + 1j * z[:, 2 * n + 1 : 3 * n + 1]
+        q = v / np.linalg.norm(v, axis=1)[:, None]
+        U, _, _ = np.linalg.svd(delta(iw))
+        left = U[:, :, -1]
+        dprime = eye + sum(
+            tau[:, k, None, None] * A[:, k + 1] * np.exp(-iw * tau[:, k])[:, None, None]
+            for k in range(m)
+        )
+        s = _dot(left, np.einsum("nij,nj->ni", dprime, q))
+        pv = left / np.conj(s)[:, None]
+
+        def stack(h: np.ndarray, lam: np.ndarray) -> np.ndarray:
+            return np.concatenate(
+                [h] + [h * np.exp(-lam * tau[:, k])[:, None] for k in range(m)], axis=1
+            )
+
+        Q = stack(q, iw)
+        Qb = Q.conj()
+        h11 = np.linalg.solve(
+            delta(np.zeros(N, complex)), self.B(xp + _cols(Q) + _cols(Qb), N)[..., None]
+        )[..., 0]
+        h20 = np.linalg.solve(delta(2 * iw), self.B(xp + _cols(Q) + _cols(Q), N)[..., None])[..., 0]
+        H11, H20 = stack(h11, np.zeros(N)), stack(h20, 2 * iw)
+        total = (
+            self.C(xp + _cols(Q) + _cols(Q) + _cols(Qb), N)
+            + 2 * self.B(xp + _cols(Q) + _cols(H11), N)
+            + self.B(xp + _cols(Qb) + _cols(H20), N)
+        )
+        l1 = 0.5 * _dot(pv, total).real / omega
+        dx = np.linalg.solve(
+            delta(np.zeros(N, complex)), self.F_mu(xp, N)[..., None].astype(complex)
+        )[..., 0]
+        X = stack(dx, np.zeros(N))
+        rot = sum(
+            (tau_mu[:, k] * np.exp(-iw * tau[:, k]))[:, None]
+            * np.einsum("nij,nj->ni", A[:, k + 1], q)
+            for k in range(m)
+        )
+        lam_mu = _dot(
+            pv,
+            np.einsum("nij,nj->ni", self.J_mu(xp, N), Q)
+            + self.B(xp + _cols(X) + _cols(Q), N)
+            - iw[:, None] * rot,
+        )
+        trans = lam_mu.real
+        amp = 2 * np.abs(q) * np.sqrt(np.abs(trans / (omega * l1)))[:, None]
+        return {
+            "l1": l1,
+            "omega": omega,
+            "critical_value": z[:, n],
+            "transversality": trans,
+            "equilibrium": x0,
+            "amplitude": amp,
+        }
+
+
+class LoopDelayHopf:
+    """The per-sample baseline: scipy.optimize.fsolve on the augmented system, then numpy
+    linear algebra, one sample at a time."""
+
+    def __init__(self, ds: DelaySymbols):
+        self.ds = ds
+        n = ds.n
+
+        def fn(expr, args):
+            return sympy.lambdify(args, expr, modules="numpy", cse=True, dummify=True)
+
+        self.G = fn(list(ds.G), ds.system_args)
+        self.blocks = fn([blk.tolist() for blk in ds.blocks], ds.xp)
+        self.F_mu = fn(list(ds.F_mu), ds.xp)
+        self.J_mu = fn(ds.J_mu.tolist(), ds.xp)
+        self.tau = fn([list(ds.tau), list(ds.tau_mu)], ds.xp)
+        self.B = fn(ds.B, ds.xp + ds.U + ds.V)
+        self.C = fn(ds.C, ds.xp + ds.U + ds.V + ds.W)
+        self.start: np.ndarray | None = None
+        self.c: np.ndarray | None = None
+        self.n = n
+
+    def prepare(self, nominal: np.ndarray, start: np.ndarray) -> None:
+        n = self.n
+        self.c = start[n + 1 : 2 * n + 1] / np.dot(
+            start[n + 1 : 2 * n + 1], start[n + 1 : 2 * n + 1]
+        )
+        self.start = start.astype(float)
+        ok, z = self._root(nominal.astype(float))
+        if not ok:
+            raise RuntimeError("scipy loop baseline: fsolve failed at the nominal parameters")
+        self.start = z
+
+    def _root(self, p: np.ndarray):
+        n, k = self.n, self.ds.mu_index
+
+        def residual(z):
+            p[k] = z[n]
+            return np.array(self.G(*z[:n], *p, *z[n + 1 :], *self.c), dtype=float)
+
+        # scipy's default tolerance, as most users leave it
+        z, _, flag, _ = scipy.optimize.fsolve(residual, self.start, full_output=True)
+        return flag == 1 and z[3 * n + 1] > 0, z
+
+    def solve_one(self, params: np.ndarray) -> dict:
+        ds, n, m = self.ds, self.n, self.ds.m
+        p = params.astype(float, copy=True)
+        ok, z = self._root(p)
+        if not ok:
+            return {"ok": False}
+        p[ds.mu_index] = z[n]
+        x0, omega = z[:n], z[3 * n + 1]
+        args = (*x0, *p)
+        A = np.array(self.blocks(*args), dtype=float)
+        tau, tau_mu = (np.array(t, dtype=float) for t in self.tau(*args))
+        eye = np.eye(n)
+
+        def delta(lam):
+            return lam * eye - A[0] - sum(A[k + 1] * np.exp(-lam * tau[k]) for k in range(m))
+
+        def stack(h, lam):
+            return np.concatenate([h] + [h * np.exp(-lam * tau[k]) for k in range(m)])
+
+        iw = 1j * omega
+        v = z[n + 1 : 2 * n + 1] + 1j * z[2 * n + 1 : 3 * n + 1]
+        q = v / np.linalg.norm(v)
+        U, _, _ = np.linalg.svd(delta(iw))
+        dprime = eye + sum(tau[k] * A[k + 1] * np.exp(-iw * tau[k]) for k in range(m))
+        pv = U[:, -1] / np.conj(np.vdot(U[:, -1], dprime @ q))
+        Q = stack(q, iw)
+        Qb = Q.conj()
+
+        def B(u, w):
+            return np.array(self.B(*args, *u, *w), dtype=complex)
+
+        h11 = np.linalg.solve(delta(0.0), B(Q, Qb))
+        h20 = np.linalg.solve(delta(2 * iw), B(Q, Q))
+        total = (
+            np.array(self.C(*args, *Q, *Q, *Qb), dtype=complex)
+            + 2 * B(Q, stack(h11, 0.0))
+            + B(Qb, stack(h20, 2 * iw))
+        )
+        l1 = 0.5 * np.vdot(pv, total).real / omega
+        dx = np.linalg.solve(delta(0.0), np.array(self.F_mu(*args), dtype=float))
+        rot = sum(tau_mu[k] * np.exp(-iw * tau[k]) * (A[k + 1] @ q) for k in range(m))
+        jq = np.array(self.J_mu(*args), dtype=float) @ Q
+        trans = np.vdot(pv, jq + B(stack(dx, 0.0), Q) - iw * rot).real
+        return {
+            "ok": True,
+            "l1": l1,
+            "omega": omega,
+            "critical_value": z[n],
+            "transversality": trans,
+            "equilibrium": x0,
+            "amplitude": 2 * np.abs(q) * np.sqrt(abs(trans / (omega * l1))),
+        }
+
+    def solve(self, params: np.ndarray) -> dict[str, np.ndarray]:
+        N, n = len(params), self.n
+        out = {
+            "ok": np.zeros(N, dtype=bool),
+            "l1": np.full(N, np.nan),
+            "omega": np.full(N, np.nan),
+            "critical_value": np.full(N, np.nan),
+            "transversality": np.full(N, np.nan),
+            "equilibrium": np.full((N, n), np.nan),
+            "amplitude": np.full((N, n), np.nan),
+        }
+        for i in range(N):
+            r = self.solve_one(params[i])
+            if r["ok"]:
+                for key, value in r.items():
+                    out[key][i] = value
+        return out
