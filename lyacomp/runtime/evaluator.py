@@ -14,6 +14,7 @@ import numpy as np
 
 from ..errors import EvaluationError, InternalError
 from ..model import Model
+from ..status import Criticality
 from .results import BatchResult, HopfResult
 
 PREFIX = "lyc"
@@ -192,6 +193,7 @@ class Evaluator:
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
+        self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient")
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -252,10 +254,14 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(self, params: Mapping[str, float] | None = None, /, **values: float) -> HopfResult:
+    def __call__(
+        self, params: Mapping[str, float] | None = None, /, *, l2: bool = False, **values: float
+    ) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
-        Every value must be one real number (see :meth:`batch` for the rules).
+        Every value must be one real number (see :meth:`batch` for the rules). ``l2=True``
+        also computes the second Lyapunov coefficient; it is computed anyway when l1 is
+        degenerate. (A parameter named ``l2`` goes in the mapping.)
         """
         values = _names(params, values, "parameters")
         ffi = self.ffi
@@ -271,7 +277,19 @@ class Evaluator:
         res = ffi.new(self._result_type)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
-        return HopfResult(res[0], self.states, self.bifurcation)
+        result = HopfResult(res[0], self.states, self.bifurcation)
+        if l2 or res.criticality == Criticality.DEGENERATE:
+            self._second_coefficient(p, res, result)
+        return result
+
+    def _second_coefficient(self, p: Any, res: Any, result: HopfResult) -> None:
+        """Compute l2 at the Hopf point of ``res`` and attach it to ``result``."""
+        value = self.ffi.new("double *")
+        gain = self.ffi.new("double[]", len(self.states))
+        self._l2_kernel(p, res, value, gain)
+        result._set_second_coefficient(
+            float(value[0]), {s: float(gain[i]) for i, s in enumerate(self.states)}
+        )
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
