@@ -17,8 +17,12 @@ from .common import (
     overrides_from_args,
 )
 from .hopf_scan import scan_for_hopf
+from .second_coefficient_text import degenerate_lines, l2_lines
 
-EXAMPLE = "example:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json"
+EXAMPLE = (
+    "examples:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json\n"
+    "  lyacomp eval examples/belt_friction_pad.toml --l2 --degenerate-in c3 --json"
+)
 
 
 def register(subparsers: argparse._SubParsersAction) -> None:
@@ -40,6 +44,18 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="ATOL",
         help="call the onset degenerate when |l1| <= ATOL (default: only when l1 vanishes "
         "to rounding)",
+    )
+    parser.add_argument(
+        "--l2",
+        action="store_true",
+        help="also compute the second Lyapunov coefficient (always done when l1 is degenerate)",
+    )
+    parser.add_argument(
+        "--degenerate-in",
+        metavar="NAME",
+        default=None,
+        help="locate where the onset type switches (l1 = 0) along parameter NAME, starting "
+        "from its value in the model or --set; JSON key degenerate_point",
     )
     parser.set_defaults(func=run)
 
@@ -95,6 +111,7 @@ def report(result: HopfResult, model_name: str) -> str:
                 f"  the cycle exists for {mu} {result.cycle_side} {mu}_c; amplitude "
                 f"~ K*sqrt(|{mu} - {mu}_c|) with K = {amp}"
             )
+    lines += l2_lines(result)
     lines.append("caution: " + CAUTION)
     return "\n".join(lines)
 
@@ -118,11 +135,17 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(values)
+    result = ev(values, l2=args.l2)
+    point = ev.degenerate_point(args.degenerate_in, values) if args.degenerate_in else None
     if args.json:
-        print(json.dumps(result.to_dict(), indent=2))
+        out = result.to_dict()
+        if point is not None:
+            out["degenerate_point"] = point.to_dict()
+        print(json.dumps(out, indent=2))
     else:
         print(report(result, model.name))
+        if point is not None:
+            print("\n".join(degenerate_lines(point)))
     if not result.ok:
         print(f"lyacomp: {result.status}: {_failure_text(result, model)}", file=sys.stderr)
         if result.status == "no_convergence":

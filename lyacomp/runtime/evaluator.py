@@ -15,6 +15,7 @@ import numpy as np
 from ..errors import EvaluationError, InternalError
 from ..model import Model
 from ..status import Criticality
+from .degenerate import DegeneratePoint, locate_degenerate
 from .results import BatchResult, HopfResult
 
 PREFIX = "lyc"
@@ -194,6 +195,7 @@ class Evaluator:
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient")
+        self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point")
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -290,6 +292,22 @@ class Evaluator:
         result._set_second_coefficient(
             float(value[0]), {s: float(gain[i]) for i, s in enumerate(self.states)}
         )
+
+    def degenerate_point(
+        self, name: str, params: Mapping[str, float] | None = None, /, **values: float
+    ) -> DegeneratePoint:
+        """Where the onset type switches along parameter ``name`` (l1 = 0), by Newton in C
+        from ``name``'s value (nominal, or given here), with l2 there.
+
+        Raises DegeneratePointError when it is not found."""
+        values = _names(params, values, "parameters")
+        row = self._nominal.copy()
+        try:
+            for key, value in values.items():
+                row[self._index[key]] = _real_scalar(value, f"parameter {key}")
+        except KeyError:
+            raise self._unknown(values) from None
+        return locate_degenerate(self, name, row, self.bifurcation not in values)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
