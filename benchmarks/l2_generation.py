@@ -19,17 +19,26 @@ from lyacomp.derive.higher import derive_higher
 MODELS = sorted((Path(__file__).parent / "models").glob("m*.toml"))
 
 
-def _timed(fn):
+def _timed(fn, *args):
     wall, cpu = time.perf_counter(), time.process_time()
-    out = fn()
+    out = fn(*args)
     return out, time.perf_counter() - wall, time.process_time() - cpu
+
+
+def _l1_part(symbolic):
+    der = derive(symbolic)
+    return der, lower(der)
+
+
+def _l2_part(der):
+    return lower_higher(derive_higher(der))
 
 
 def main() -> None:
     for path in MODELS:
         symbolic = load_model(path).symbolic()
-        (der, low), wall1, cpu1 = _timed(lambda: (d := derive(symbolic), lower(d)))
-        high, wall2, cpu2 = _timed(lambda: lower_higher(derive_higher(der)))
+        (der, _), wall1, cpu1 = _timed(_l1_part, symbolic)
+        high, wall2, cpu2 = _timed(_l2_part, der)
         source = generate(load_model(path)).embedded
         print(
             f"{path.stem}: l1 part {wall1:.2f} s wall / {cpu1:.2f} s CPU; l2 part "
