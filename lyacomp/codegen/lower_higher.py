@@ -18,6 +18,7 @@ from math import factorial, prod
 import sympy as sp
 
 from ..derive.higher import HigherDerivatives
+from ..errors import InternalError
 from .lower import Accumulation, Block, lower_block
 
 Pair = tuple[int, int]
@@ -28,6 +29,9 @@ _ARG_NAMES = ("u", "v", "w", "y", "z")
 TARGETS: tuple[Pair, ...] = ((2, 0), (1, 1), (3, 0), (2, 1), (3, 1), (2, 2), (3, 2))
 """The expansion coefficients h_jk solved in this order (j + k <= 5, j <= 3, k <= 2)."""
 
+SLOTS = ("q", "qb", "h20", "h02", "h11", "h30", "h21", "h12", "h31", "h22")
+"""The vectors the kernel holds (q, conj q, the h_jk of TARGETS but h32, and conjugates)."""
+
 
 @dataclass(frozen=True)
 class FormCall:
@@ -37,6 +41,11 @@ class FormCall:
     tensor: str
     args: tuple[str, ...]
     divisor: int
+
+    @property
+    def slots(self) -> str:
+        """The arguments as C slot names of the vector table (``LV_Q, LV_H20``)."""
+        return ", ".join(f"LV_{a.upper()}" for a in self.args)
 
 
 @dataclass(frozen=True)
@@ -52,11 +61,13 @@ class LoweredHigher:
     """Everything stage_l2.c.j2 needs, already printed as C."""
 
     derivatives: Block
+    """d4[...] and d5[...] (the second and third come from the l1 kernel's function)."""
     n_fourth: int
     n_fifth: int
     d_form: tuple[Accumulation, ...]
     e_form: tuple[Accumulation, ...]
     recipe: tuple[Coefficient, ...]
+    slots: tuple[str, ...] = SLOTS
 
 
 def vector_name(pair: Pair) -> str:
@@ -109,7 +120,7 @@ def _symmetric(keys: list[tuple[int, ...]], arity: int) -> tuple[Accumulation, .
 
 
 def lower_higher(high: HigherDerivatives) -> LoweredHigher:
-    """Print the derivatives up to fifth order (one CSE pass) and the forms D, E."""
+    """Print the fourth and fifth derivatives (one CSE pass) and the forms D, E."""
     der = high.base
     model = der.model
     subs: dict[sp.Symbol, sp.Symbol] = {}
@@ -117,15 +128,15 @@ def lower_higher(high: HigherDerivatives) -> LoweredHigher:
         subs[s] = sp.Symbol(f"x[{j}]", real=True)
     for k, s in enumerate(model.parameters):
         subs[s] = sp.Symbol(f"p[{k}]", real=True)
-    second_keys = sorted(der.second)
-    third_keys = sorted(der.third)
     fourth_keys = sorted(high.fourth)
     fifth_keys = sorted(high.fifth)
-    assign = [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)]
-    assign += [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)]
-    assign += [(f"d4[{k}]", high.fourth[key]) for k, key in enumerate(fourth_keys)]
+    # d2 and d3 come from the curvature function of the l1 kernel; only d4, d5 here.
+    assign = [(f"d4[{k}]", high.fourth[key]) for k, key in enumerate(fourth_keys)]
     assign += [(f"d5[{k}]", high.fifth[key]) for k, key in enumerate(fifth_keys)]
     recipe = tuple(Coefficient(vector_name(t), expansion_terms(t)) for t in TARGETS)
+    missing = {a for c in recipe for t in c.terms for a in t.args} - set(SLOTS)
+    if missing:
+        raise InternalError(f"the l2 recipe uses vectors the kernel lacks: {sorted(missing)}")
     return LoweredHigher(
         derivatives=lower_block(assign, subs, "t"),
         n_fourth=len(fourth_keys),
