@@ -291,3 +291,25 @@ def test_simulation_shows_two_cycles_outer_stable(planar):
     assert big == pytest.approx(outer, rel=0.3)  # truncated normal form: a rough estimate
     # past the fold no cycle is left: every start decays to the equilibrium
     assert final_amplitude(2.0 * fold.value, 1.5 * outer) < 1e-3
+
+
+def test_time_rescaling_and_reversal():
+    # math.md, Invariances: F -> k F (k > 0) leaves l2 unchanged; F -> -F flips its sign.
+    # (Normal form: w' = k(i omega w + c2 w|w|^4) gives c2 -> k c2, omega -> k omega.)
+    eqs = {name: f"tk*({rhs})" for name, rhs in FAMILIES["polynomial"].items()}
+    model = lyacomp.Model(
+        name="bautin_time_scaled",
+        states={"u": 0.0, "v": 0.0, "w": 0.0},
+        parameters={"mu": 0.01, "a": -0.3, "tk": 1.0},
+        equations=eqs,
+        bifurcation="mu",
+    )
+    ev = lyacomp.compile(model)
+    base = ev(l2=True)
+    assert base.ok and math.isfinite(base.l2) and base.l2 != 0
+    faster = ev(tk=2.5, l2=True)
+    assert faster.omega == pytest.approx(2.5 * base.omega, rel=1e-12)
+    assert faster.l2 == pytest.approx(base.l2, rel=1e-10)
+    reversed_ = ev(tk=-1.0, l2=True)
+    assert reversed_.ok, reversed_.status
+    assert reversed_.l2 == pytest.approx(-base.l2, rel=1e-10)
