@@ -86,6 +86,9 @@ def test_degenerate_point_reports_l2_and_onset(bautin, s):
     assert r.degenerate_onset == ("soft" if s < 0 else "hard")
     assert r.to_dict()["l2"] == pytest.approx(4 * s, rel=1e-12)
     assert "l2" not in bautin(b2=0.3).to_dict()  # only when asked or degenerate
+    assert bautin.evaluate_l2(b2=0.3).l2 == pytest.approx(4 * -0.7, rel=1e-12)
+    with pytest.raises(lyacomp.EvaluationError, match="True or False"):
+        bautin(l2="yes")
 
 
 def test_fold_of_cycles_from_the_normal_form(bautin):

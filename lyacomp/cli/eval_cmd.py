@@ -135,7 +135,7 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(values, l2=args.l2)
+    result = ev.evaluate_l2(values) if args.l2 else ev(values)
     point = ev.degenerate_point(args.degenerate_in, values) if args.degenerate_in else None
     if args.json:
         out = result.to_dict()

@@ -256,15 +256,28 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(
-        self, params: Mapping[str, float] | None = None, /, *, l2: bool = False, **values: float
-    ) -> HopfResult:
+    def __call__(self, params: Mapping[str, float] | None = None, /, **values: Any) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
         Every value must be one real number (see :meth:`batch` for the rules). ``l2=True``
-        also computes the second Lyapunov coefficient; it is computed anyway when l1 is
-        degenerate. (A parameter named ``l2`` goes in the mapping.)
+        also computes the second Lyapunov coefficient (it is computed anyway when l1 is
+        degenerate); in a model with a parameter named ``l2`` that keyword is the
+        parameter, and :meth:`evaluate_l2` asks for l2.
         """
+        want_l2 = False
+        if "l2" in values and "l2" not in self._index:
+            want_l2 = values.pop("l2")
+            if not isinstance(want_l2, bool | np.bool_):
+                raise EvaluationError(f"l2 must be True or False, got {_describe(want_l2)}")
+        return self._evaluate_one(params, values, bool(want_l2))
+
+    def evaluate_l2(
+        self, params: Mapping[str, float] | None = None, /, **values: float
+    ) -> HopfResult:
+        """Like calling the evaluator, always with the second Lyapunov coefficient."""
+        return self._evaluate_one(params, values, True)
+
+    def _evaluate_one(self, params: Any, values: dict[str, Any], l2: bool) -> HopfResult:
         values = _names(params, values, "parameters")
         ffi = self.ffi
         row = self._nominal.copy()
