@@ -68,5 +68,14 @@ class StudyError(LyacompError):
     """A study (Monte Carlo, optimization, map, simulation) was set up wrongly."""
 
 
+class DegeneratePointError(LyacompError):
+    """The degenerate Hopf point (l1 = 0) along a second parameter was not found.
+
+    Usual causes: l1 does not change sign near the starting value, the Hopf point is
+    lost on the way (the message names the evaluation status), or l1 does not depend on
+    that parameter.
+    """
+
+
 class InternalError(Exception):
     """A bug in lyacomp; please report it with the model that triggered it."""

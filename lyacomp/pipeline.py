@@ -25,8 +25,10 @@ from .build import (
     toolchain,
 )
 from .codegen import CSources, lower, render, templates_digest_input
+from .codegen.lower_higher import lower_higher
 from .config import BuildConfig
 from .derive import derive
+from .derive.higher import derive_higher
 from .errors import BuildError, LyacompError
 from .model import Model, load_model
 from .runtime import Evaluator, Tolerances
@@ -71,7 +73,8 @@ def generate(
     """Derive and render the C sources of a model (no compilation)."""
     derivatives = derive(model.symbolic())
     lowered = lower(derivatives)
-    return render(model, lowered, prefix=prefix, key=key, header_name=header_name)
+    higher = lower_higher(derive_higher(derivatives))
+    return render(model, lowered, prefix=prefix, key=key, header_name=header_name, higher=higher)
 
 
 def model_key(model: Model, config: BuildConfig) -> str:

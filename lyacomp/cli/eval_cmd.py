@@ -18,10 +18,12 @@ from .common import (
     overrides_from_args,
 )
 from .hopf_scan import scan_for_hopf
+from .second_coefficient_text import degenerate_lines, l2_lines
 
 EXAMPLE = (
     "examples:\n  lyacomp eval examples/belt_friction_pad.toml --set c3=3 --json\n"
-    "  lyacomp eval examples/duct_flap.toml --operating 0.5   # from a stable flow speed up"
+    "  lyacomp eval examples/duct_flap.toml --operating 0.5   # from a stable flow speed up\n"
+    "  lyacomp eval examples/belt_friction_pad.toml --l2 --degenerate-in c3 --json"
 )
 
 
@@ -59,6 +61,18 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="ATOL",
         help="call the onset degenerate when |l1| <= ATOL (default: only when l1 vanishes "
         "to rounding)",
+    )
+    parser.add_argument(
+        "--l2",
+        action="store_true",
+        help="also compute the second Lyapunov coefficient (always done when l1 is degenerate)",
+    )
+    parser.add_argument(
+        "--degenerate-in",
+        metavar="NAME",
+        default=None,
+        help="locate where the onset type switches (l1 = 0) along parameter NAME, starting "
+        "from its value in the model or --set; JSON key degenerate_point",
     )
     parser.set_defaults(func=run)
 
@@ -135,6 +149,7 @@ def report(result: HopfResult, model_name: str) -> str:
                 f"  the cycle exists for {mu} {result.cycle_side} {mu}_c; amplitude "
                 f"~ K*sqrt(|{mu} - {mu}_c|) with K = {amp}"
             )
+    lines += l2_lines(result)
     lines.append("caution: " + CAUTION)
     return "\n".join(lines)
 
@@ -158,11 +173,20 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(values, operating=args.operating, search=args.search)
+    if args.l2:
+        result = ev.evaluate_l2(values, operating=args.operating, search=args.search)
+    else:
+        result = ev(values, operating=args.operating, search=args.search)
+    point = ev.degenerate_point(args.degenerate_in, values) if args.degenerate_in else None
     if args.json:
-        print(json.dumps(result.to_dict(), indent=2))
+        out = result.to_dict()
+        if point is not None:
+            out["degenerate_point"] = point.to_dict()
+        print(json.dumps(out, indent=2))
     else:
         print(report(result, model.name))
+        if point is not None:
+            print("\n".join(degenerate_lines(point)))
     if not result.ok:
         print(f"lyacomp: {result.status}: {_failure_text(result, model)}", file=sys.stderr)
         if result.status == "no_convergence":

@@ -6,6 +6,8 @@ import argparse
 import json
 from pathlib import Path
 
+import numpy as np
+
 from ..errors import StudyError
 from ..pipeline import compile_model
 from ..runtime import CAUTION
@@ -122,6 +124,11 @@ def run(args: argparse.Namespace) -> int:
         f"l1 = 0 located at {len(pmap.curve)} points by root finding"
         + (f" ({pmap.unresolved} brackets left unresolved)" if pmap.unresolved else "")
     )
+    if pmap.traced_stops:
+        print(
+            f"l1 = 0 traced at {int(np.sum(~np.isnan(pmap.traced[:, 0])))} points; ends: "
+            + "; ".join(pmap.traced_stops)
+        )
     print("wrote " + ", ".join(str(p) for p in written))
     print("caution: " + CAUTION)
     return 0

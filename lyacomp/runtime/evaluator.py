@@ -15,7 +15,9 @@ import numpy as np
 
 from ..errors import EvaluationError, InternalError
 from ..model import Model
+from ..status import Criticality
 from . import operating as op
+from .degenerate import DegeneratePoint, locate_degenerate
 from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
@@ -197,6 +199,8 @@ class Evaluator:
         self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
+        self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient")
+        self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point")
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -264,7 +268,7 @@ class Evaluator:
         *,
         operating: float | None = None,
         search: str | None = None,
-        **values: float,
+        **values: Any,
     ) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
@@ -274,8 +278,38 @@ class Evaluator:
         of the bifurcation parameter to the first loss of stability; ``search="guess"``
         runs Newton from the starting guesses (faster, and it finds the Hopf point nearest
         the guesses, first loss of stability or not). Parameters named ``operating`` or
-        ``search`` go in the mapping.
+        ``search`` go in the mapping. ``l2=True`` also computes the second Lyapunov
+        coefficient (it is computed anyway when l1 is degenerate); in a model with a
+        parameter named ``l2`` that keyword is the parameter, and :meth:`evaluate_l2`
+        asks for l2.
         """
+        want_l2 = False
+        if "l2" in values and "l2" not in self._index:
+            want_l2 = values.pop("l2")
+            if not isinstance(want_l2, bool | np.bool_):
+                raise EvaluationError(f"l2 must be True or False, got {_describe(want_l2)}")
+        return self._evaluate_one(params, values, bool(want_l2), operating, search)
+
+    def evaluate_l2(
+        self,
+        params: Mapping[str, float] | None = None,
+        /,
+        *,
+        operating: float | None = None,
+        search: str | None = None,
+        **values: float,
+    ) -> HopfResult:
+        """Like calling the evaluator, always with the second Lyapunov coefficient."""
+        return self._evaluate_one(params, values, True, operating, search)
+
+    def _evaluate_one(
+        self,
+        params: Any,
+        values: dict[str, Any],
+        l2: bool,
+        operating: Any = None,
+        search: str | None = None,
+    ) -> HopfResult:
         method = op.chosen_search(self, search, operating)
         if params is not None:
             values = _names(params, values, "parameters")
@@ -302,11 +336,15 @@ class Evaluator:
             p[0 : len(row)] = row
         res = self.ffi.new(self._result_type)
         if method == "operating":
-            return self._call_operating(p, row, operating, res)
-        start = self._null if self.bifurcation in values else self._start
-        self._evaluate(p, self._guess, start, self._options, res)
-        guess = row[self._index[self.bifurcation]] if self.bifurcation else None
-        return HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
+            result = self._call_operating(p, row, operating, res)
+        else:
+            start = self._null if self.bifurcation in values else self._start
+            self._evaluate(p, self._guess, start, self._options, res)
+            guess = row[self._index[self.bifurcation]] if self.bifurcation else None
+            result = HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
+        if l2 or res.criticality == Criticality.DEGENERATE:
+            self._second_coefficient(p, res, result)
+        return result
 
     def _call_operating(self, p: Any, row: Any, operating: Any, res: Any) -> HopfResult:
         """One evaluation by the operating-point search."""
@@ -319,6 +357,31 @@ class Evaluator:
         evaluate(p, self._guess, value, direction, self._options, res, info)
         search = SearchInfo("operating", value, op.word(direction), info.steps, info.loss_value)
         return HopfResult(res, self.states, self.bifurcation, search)
+
+    def _second_coefficient(self, p: Any, res: Any, result: HopfResult) -> None:
+        """Compute l2 at the Hopf point of ``res`` and attach it to ``result``."""
+        value = self.ffi.new("double *")
+        gain = self.ffi.new("double[]", len(self.states))
+        self._l2_kernel(p, res, value, gain)
+        result._set_second_coefficient(
+            float(value[0]), {s: float(gain[i]) for i, s in enumerate(self.states)}
+        )
+
+    def degenerate_point(
+        self, name: str, params: Mapping[str, float] | None = None, /, **values: float
+    ) -> DegeneratePoint:
+        """Where the onset type switches along parameter ``name`` (l1 = 0), by Newton in C
+        from ``name``'s value (nominal, or given here), with l2 there.
+
+        Raises DegeneratePointError when it is not found."""
+        values = _names(params, values, "parameters")
+        row = self._nominal.copy()
+        try:
+            for key, value in values.items():
+                row[self._index[key]] = _real_scalar(value, f"parameter {key}")
+        except KeyError:
+            raise self._unknown(values) from None
+        return locate_degenerate(self, name, row, self.bifurcation not in values)
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(

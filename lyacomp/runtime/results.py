@@ -9,6 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..status import Criticality, Status
+from .second_coefficient import CycleFold, cycle_fold
 
 CAUTION = (
     "Local analysis near onset: l1 describes the cycle born at the Hopf point for small "
@@ -56,7 +57,7 @@ class HopfResult:
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    __slots__ = ("_raw", "_states", "_bifurcation", "_search")
+    __slots__ = ("_raw", "_states", "_bifurcation", "_search", "_l2", "_radius_gain")
 
     def __init__(
         self,
@@ -69,11 +70,41 @@ class HopfResult:
         self._states = states
         self._bifurcation = bifurcation
         self._search = search
+        self._l2: float | None = None
+        self._radius_gain: dict[str, float] = {}
 
     @property
     def search(self) -> SearchInfo | None:
         """How the point was searched for (None when the caller did not say)."""
         return self._search
+
+    def _set_second_coefficient(self, l2: float, radius_gain: dict[str, float]) -> None:
+        """Attach l2 (computed on request, or because l1 is degenerate)."""
+        self._l2 = l2
+        self._radius_gain = radius_gain
+
+    @property
+    def l2(self) -> float | None:
+        """Second Lyapunov coefficient (None when not computed, NaN when it failed)."""
+        return self._l2
+
+    @property
+    def degenerate_onset(self) -> str | None:
+        """At a degenerate point (l1 = 0), the onset l2 decides: 'soft' (l2 < 0) or 'hard'."""
+        if self.criticality != "degenerate" or self._l2 is None or not self._l2 != 0.0:
+            return None
+        return "soft" if self._l2 < 0.0 else "hard" if self._l2 > 0.0 else None
+
+    @property
+    def cycle_fold(self) -> CycleFold | None:
+        """The fold of cycles bounding the jump, when l1 and l2 have opposite signs."""
+        if self._l2 is None or not self.ok or self.criticality == "degenerate":
+            return None
+        transversality = self.transversality if self._bifurcation is not None else None
+        critical = self.critical_value if self._bifurcation is not None else None
+        return cycle_fold(
+            self.l1, self._l2, self.omega, transversality, critical, self._radius_gain
+        )
 
     @property
     def status(self) -> str:
@@ -160,9 +191,10 @@ class HopfResult:
         return self.status_code.explanation
 
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready form (NaN becomes None)."""
+        """JSON-ready form (NaN becomes None); ``l2`` and what follows from it only when
+        l2 was computed."""
         amplitude = {k: _number(v) for k, v in self.amplitude.items()}
-        return {
+        out = {
             "status": self.status,
             "l1": _number(self.l1),
             "omega": _number(self.omega),
@@ -178,6 +210,12 @@ class HopfResult:
             "stable_side": self.stable_side,
             "search": None if self._search is None else self._search.to_dict(),
         }
+        if self._l2 is not None:
+            fold = self.cycle_fold
+            out["l2"] = _number(self._l2)
+            out["degenerate_onset"] = self.degenerate_onset
+            out["cycle_fold"] = None if fold is None else fold.to_dict()
+        return out
 
     def __repr__(self) -> str:
         if not self.ok:

@@ -33,6 +33,8 @@ import numpy as np
 from lyacomp.errors import StudyError
 from lyacomp.status import Criticality, Status
 
+from .bautin_curve import trace_from_grid_points
+
 
 class PointClass(IntEnum):
     """What a grid point is, as stored in :attr:`ParameterMap.classes`."""
@@ -131,6 +133,9 @@ class ParameterMap:
     bifurcation: str = ""
     curve: np.ndarray = field(default_factory=lambda: np.empty((0, 2)))
     unresolved: int = 0
+    traced: np.ndarray = field(default_factory=lambda: np.empty((0, 2)))
+    """l1 = 0 traced by the predictor-corrector (bautin_curve.py); NaN rows between branches."""
+    traced_stops: list[str] = field(default_factory=list)
 
     def counts(self) -> dict[str, int]:
         """Number of grid points per class (in words)."""
@@ -146,6 +151,10 @@ class ParameterMap:
             "counts": self.counts(),
             "zero_curve_points": int(len(self.curve)),
             "zero_curve_unresolved_segments": self.unresolved,
+            "traced_curve": [
+                [None, None] if np.isnan(a) else [float(a), float(b)] for a, b in self.traced
+            ],
+            "traced_curve_stops": list(self.traced_stops),
         }
 
     def save(self, path: str | Path) -> list[Path]:
@@ -166,6 +175,7 @@ class ParameterMap:
                 critical_value=self.critical_value,
                 omega=self.omega,
                 zero_curve=self.curve,
+                traced_curve=self.traced,
             )
             return [path]
         if path.suffix != ".csv":
@@ -392,6 +402,7 @@ def parameter_map(
     fixed: Mapping[str, float] | None = None,
     *,
     locate_curve: bool = True,
+    trace_curve: bool = True,
     follow_branch: bool = True,
     threads: int | None = None,
     client: Any = None,
@@ -408,6 +419,8 @@ def parameter_map(
     ``client`` (a
     ``distributed.Client``) evaluates blocks of grid rows on a Dask cluster, with the same
     grids bit for bit; the l1 = 0 curve is then located here.
+    With ``trace_curve`` (and ``locate_curve``) the curve is also traced from the located
+    points by a predictor-corrector (:mod:`.bautin_curve`) into ``traced``.
     """
     fixed = {k: float(v) for k, v in (fixed or {}).items()}
     _check_names(ev, [x.name, y.name], fixed)
@@ -442,6 +455,11 @@ def parameter_map(
     )
     if locate_curve:
         _locate_zero_curve(ev, pmap, grids["criticality"])
+        if trace_curve and len(pmap.curve):
+            traced = trace_from_grid_points(
+                ev, x.name, (x.lo, x.hi), y.name, (y.lo, y.hi), pmap.curve, fixed
+            )
+            pmap.traced, pmap.traced_stops = traced.points, traced.stops
     return pmap
 
 

@@ -71,6 +71,12 @@ def plot_map(
                 label="l1 = 0, located by root finding",
             )
         )
+    if len(pmap.traced):
+        for ax in (left, right):
+            ax.plot(pmap.traced[:, 0], pmap.traced[:, 1], "-", color=CURVE_COLOUR, lw=1.2)
+        handles.append(
+            Line2D([], [], color=CURVE_COLOUR, lw=1.2, label="l1 = 0, traced (predictor-corrector)")
+        )
     if mark is not None:
         for ax in (left, right):
             ax.plot(*mark, marker="*", ms=15, color="#ffffff", mec="#000000", mew=1.2, lw=0)

@@ -1,0 +1,60 @@
+"""Stage 2, continued: fourth and fifth derivatives for the second Lyapunov coefficient.
+
+Formed from the stored third derivatives, again once per sorted index tuple and only
+where non-zero, so the cost stays proportional to the entries that exist.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import sympy as sp
+
+from ..errors import DerivationError
+from ..model.expr_parser import quote
+from .derivatives import Derivatives
+
+Index5 = tuple[int, int, int, int, int]
+Index6 = tuple[int, int, int, int, int, int]
+
+
+@dataclass(frozen=True)
+class HigherDerivatives:
+    """``fourth[(i, j, k, last, m)]`` is d^4 F_i / dx_j dx_k dx_l dx_m for j <= k <= l <= m;
+    ``fifth`` likewise with five sorted state indices."""
+
+    base: Derivatives
+    fourth: dict[Index5, sp.Expr]
+    fifth: dict[Index6, sp.Expr]
+
+
+def _diff(expr: sp.Expr, var: sp.Symbol, equation: int) -> sp.Expr:
+    try:
+        return sp.diff(expr, var)
+    except Exception as exc:  # sympy raises many types on exotic input
+        raise DerivationError(
+            f"cannot differentiate equation {equation} with respect to {var}: {quote(str(exc))}"
+        ) from exc
+
+
+def derive_higher(der: Derivatives) -> HigherDerivatives:
+    """Differentiate each stored third derivative once and twice more."""
+    xs = der.model.states
+    n = len(xs)
+    fourth: dict[Index5, sp.Expr] = {}
+    fifth: dict[Index6, sp.Expr] = {}
+    for (i, j, k, last), d3 in sorted(der.third.items()):
+        for m in range(last, n):
+            if xs[m] not in d3.free_symbols:
+                continue
+            d4 = _diff(d3, xs[m], i)
+            if d4 == 0:
+                continue
+            fourth[(i, j, k, last, m)] = d4
+            for r in range(m, n):
+                if xs[r] not in d4.free_symbols:
+                    continue
+                d5 = _diff(d4, xs[r], i)
+                if d5 != 0:
+                    fifth[(i, j, k, last, m, r)] = d5
+    return HigherDerivatives(der, fourth, fifth)
