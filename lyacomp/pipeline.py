@@ -24,9 +24,9 @@ from .build import (
     new_build_dir,
     toolchain,
 )
-from .codegen import CSources, lower, render, templates_digest_input
+from .codegen import CSources, lower, lower_sensitivity, render, templates_digest_input
 from .config import BuildConfig
-from .derive import derive
+from .derive import derive, derive_sensitivity
 from .errors import BuildError, LyacompError
 from .model import Model, load_model
 from .runtime import Evaluator, Tolerances
@@ -71,7 +71,13 @@ def generate(
     """Derive and render the C sources of a model (no compilation)."""
     derivatives = derive(model.symbolic())
     lowered = lower(derivatives)
-    return render(model, lowered, prefix=prefix, key=key, header_name=header_name)
+    # Exact parameter derivatives follow the Hopf point, so they need a bifurcation parameter.
+    sensitivity = None
+    if model.bifurcation is not None:
+        sensitivity = lower_sensitivity(derivatives, derive_sensitivity(derivatives))
+    return render(
+        model, lowered, prefix=prefix, key=key, header_name=header_name, sensitivity=sensitivity
+    )
 
 
 def model_key(model: Model, config: BuildConfig) -> str:

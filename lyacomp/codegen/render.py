@@ -15,6 +15,7 @@ from ..model import Model
 from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..status import Status
 from .lower import Lowered
+from .lower_sensitivity import SensitivityLowered
 
 
 def templates_dir() -> Path:
@@ -81,8 +82,16 @@ def _checked_header_name(header_name: str) -> str:
     return header_name
 
 
-def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: str) -> CSources:
-    """Render the C unit (for cffi and standalone use) of one lowered model."""
+def render(
+    model: Model,
+    lowered: Lowered,
+    prefix: str,
+    key: str,
+    header_name: str,
+    sensitivity: SensitivityLowered | None = None,
+) -> CSources:
+    """Render the C unit (for cffi and standalone use) of one lowered model; with
+    ``sensitivity`` (models with a bifurcation parameter) the derivative entry points too."""
     env = _environment()
     if not isinstance(key, str) or not _KEY.fullmatch(key):
         raise ModelError("the cache key must be 16 to 64 lowercase hexadecimal digits")
@@ -122,6 +131,8 @@ def render(model: Model, lowered: Lowered, prefix: str, key: str, header_name: s
         "solve_mu": lowered.bif_index >= 0 and lowered.critical_value is None,
         # n <= 3: the Hopf point solves a reduced system (trace or Routh-Hurwitz) and the
         # spectrum follows in closed form, so no eigenvalue routine is needed.
+        # Exact parameter derivatives (templates/stage_sensitivity.c.j2), or None.
+        "sens": sensitivity,
         "reduced": lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 3,
     }
     source = env.get_template("model.c.j2")

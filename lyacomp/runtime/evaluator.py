@@ -14,6 +14,7 @@ import numpy as np
 
 from ..errors import EvaluationError, InternalError
 from ..model import Model
+from .derivatives import batch_derivative_buffers, batch_derivatives, derivatives_of
 from .results import BatchResult, HopfResult
 
 PREFIX = "lyc"
@@ -252,26 +253,68 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(self, params: Mapping[str, float] | None = None, /, **values: float) -> HopfResult:
+    def __call__(
+        self,
+        params: Mapping[str, float] | None = None,
+        /,
+        *,
+        derivatives: bool = False,
+        **values: float,
+    ) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
-        Every value must be one real number (see :meth:`batch` for the rules).
+        Every value must be one real number (see :meth:`batch` for the rules). With
+        ``derivatives=True`` the result also carries the exact derivatives of l1, the
+        critical value, omega and the equilibrium with respect to every parameter other
+        than the bifurcation parameter (``result.derivatives``), from the same C call.
+        A parameter named ``derivatives`` goes in the mapping.
         """
         values = _names(params, values, "parameters")
+        if derivatives:
+            return self._call_derivatives(values)
         ffi = self.ffi
-        row = self._nominal.copy()
-        if values:
-            index = self._index
-            try:
-                for name, value in values.items():
-                    row[index[name]] = _real_scalar(value, f"parameter {name}")
-            except KeyError:
-                raise self._unknown(values) from None
+        row = self._row(values)
         p = ffi.new(self._params_type, row)
         res = ffi.new(self._result_type)
         start = ffi.NULL if self.bifurcation in values else self._start
         self._evaluate(p, self._guess, start, self._options, res)
         return HopfResult(res[0], self.states, self.bifurcation)
+
+    def _call_derivatives(self, values: dict[str, Any]) -> HopfResult:
+        entry = self._derivative_entry("_evaluate_derivatives")
+        ffi = self.ffi
+        row = self._row(values)
+        p = ffi.new(self._params_type, row)
+        res = ffi.new(self._result_type)
+        der = ffi.new(f"{PREFIX}_derivatives *")
+        start = ffi.NULL if self.bifurcation in values else self._start
+        entry(p, self._guess, start, self._options, res, der)
+        return HopfResult(
+            res[0], self.states, self.bifurcation, derivatives_of(der, self.parameters, self)
+        )
+
+    def _row(self, values: Mapping[str, Any]) -> list[float]:
+        row = self._nominal.copy()
+        try:
+            for name, value in values.items():
+                row[self._index[name]] = _real_scalar(value, f"parameter {name}")
+        except KeyError:
+            raise self._unknown(values) from None
+        return row
+
+    @property
+    def derivative_parameters(self) -> tuple[str, ...]:
+        """The parameters derivatives are taken for, in the order of the columns of
+        ``BatchResult.derivatives`` arrays: model order without the bifurcation parameter."""
+        return tuple(p for p in self.parameters if p != self.bifurcation)
+
+    def _derivative_entry(self, suffix: str) -> Any:
+        if self.bifurcation is None:
+            raise EvaluationError(
+                "derivatives need a bifurcation parameter: without one the given point is not "
+                "followed when a parameter changes (add [bifurcation] parameter = ... to the model)"
+            )
+        return getattr(self.lib, f"{PREFIX}{suffix}")
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
@@ -280,6 +323,7 @@ class Evaluator:
         /,
         *,
         threads: int | None = None,
+        derivatives: bool = False,
         **values: Any,
     ) -> BatchResult:
         """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
@@ -290,7 +334,14 @@ class Evaluator:
         numpy arrays and scalars of real dtypes, sequences of these; complex, text, dates,
         object and masked arrays are refused. ``threads=None`` uses all cores. A keyword
         named ``threads`` is always the option: a parameter of that name goes in the mapping.
+
+        ``derivatives=True`` adds ``result.derivatives``: a mapping from ``"l1"``,
+        ``"critical_value"`` and ``"omega"`` to arrays of shape ``shape + (parameters,)``
+        and from ``"equilibrium"`` to ``shape + (parameters, states)``, the parameter axis
+        in the order of :attr:`derivative_parameters` (NaN where a sample is not ok).
         """
+        if derivatives:
+            self._derivative_entry("_evaluate_batch_derivatives")
         values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
@@ -353,19 +404,25 @@ class Evaluator:
             )
             c_strides = ffi.new("long[]", strides or [0])
             start = ffi.NULL if self.bifurcation in values else self._start
-            self._evaluate_batch(
-                count,
-                c_params,
-                c_strides,
-                self._guess,
-                start,
-                self._options,
-                threads,
-                c_out,
-            )
+            args = (count, c_params, c_strides, self._guess, start, self._options, threads, c_out)
+            if derivatives:
+                c_der, der_out = batch_derivative_buffers(ffi, count, len(self.parameters), n)
+                self.lib.lyc_evaluate_batch_derivatives(*args, c_der)
+            else:
+                self._evaluate_batch(*args)
+        elif derivatives:
+            der_out = batch_derivative_buffers(self.ffi, 0, len(self.parameters), n)[1]
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
-        return BatchResult(states=self.states, **vector, **matrix)
+        result = BatchResult(states=self.states, **vector, **matrix)
+        if derivatives:
+            keep = [k for k, p in enumerate(self.parameters) if p != self.bifurcation]
+            result = replace(
+                result,
+                derivatives=batch_derivatives(der_out, keep, shape),
+                derivative_parameters=self.derivative_parameters,
+            )
+        return result
 
     def _threads(self, threads: Any) -> int:
         """The thread count for C (0: all cores), or an EvaluationError."""

@@ -27,12 +27,27 @@ class HopfResult:
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    __slots__ = ("_raw", "_states", "_bifurcation")
+    __slots__ = ("_raw", "_states", "_bifurcation", "_derivatives")
 
-    def __init__(self, raw: Any, states: tuple[str, ...], bifurcation: str | None):
+    def __init__(
+        self,
+        raw: Any,
+        states: tuple[str, ...],
+        bifurcation: str | None,
+        derivatives: dict[str, dict] | None = None,
+    ):
         self._raw = raw
         self._states = states
         self._bifurcation = bifurcation
+        self._derivatives = derivatives
+
+    @property
+    def derivatives(self) -> dict[str, dict] | None:
+        """Exact derivatives when asked for (``ev(..., derivatives=True)``) and ok, else None:
+        ``{"l1" | "critical_value" | "omega": {parameter: value},
+        "equilibrium": {state: {parameter: value}}}`` over the parameters other than the
+        bifurcation parameter."""
+        return self._derivatives
 
     @property
     def status(self) -> str:
@@ -135,6 +150,7 @@ class HopfResult:
             "criticality": self.criticality,
             "unstable_count": self.unstable_count,
             "stable_side": self.stable_side,
+            **({} if self._derivatives is None else {"derivatives": self._derivatives}),
         }
 
     def __repr__(self) -> str:
@@ -169,6 +185,11 @@ class BatchResult:
     transversality: np.ndarray
     equilibrium: np.ndarray
     amplitude: np.ndarray
+    derivatives: dict[str, np.ndarray] | None = None
+    """With ``batch(..., derivatives=True)``: ``"l1"``, ``"critical_value"``, ``"omega"``
+    shaped ``shape + (parameters,)``, ``"equilibrium"`` shaped ``shape + (parameters,
+    states)``; the parameter axis follows ``derivative_parameters``."""
+    derivative_parameters: tuple[str, ...] = ()
 
     def __len__(self) -> int:
         return int(self.status.size)
