@@ -41,6 +41,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="call the onset degenerate when |l1| <= ATOL (default: only when l1 vanishes "
         "to rounding)",
     )
+    parser.add_argument(
+        "--derivatives",
+        action="store_true",
+        help="also the exact derivatives of l1, the critical value and omega with respect to "
+        "every parameter other than the bifurcation parameter (JSON key 'derivatives')",
+    )
     parser.set_defaults(func=run)
 
 
@@ -95,8 +101,24 @@ def report(result: HopfResult, model_name: str) -> str:
                 f"  the cycle exists for {mu} {result.cycle_side} {mu}_c; amplitude "
                 f"~ K*sqrt(|{mu} - {mu}_c|) with K = {amp}"
             )
+    lines.extend(derivative_lines(result))
     lines.append("caution: " + CAUTION)
     return "\n".join(lines)
+
+
+def derivative_lines(result: HopfResult) -> list[str]:
+    """The exact derivatives as a small table (nothing when they were not asked for)."""
+    table = result.derivatives_dict()
+    if table is None:
+        return []
+    mu = result.bifurcation_parameter
+    lines = [f"  exact derivatives (the Hopf point followed in {mu}):"]
+    width = max(len(p) for p in table["l1"]) if table["l1"] else 0
+    lines.append(f"    {'':{width}}  {'d l1':>17} {'d ' + str(mu) + '_c':>17} {'d omega':>17}")
+    for name in table["l1"]:
+        row = (table[q][name] for q in ("l1", "critical_value", "omega"))
+        lines.append(f"    {name:{width}}  " + " ".join(f"{v:17.10g}" for v in row))
+    return lines
 
 
 def _failure_text(result: HopfResult, model: Model) -> str:
@@ -118,9 +140,12 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    result = ev(values)
+    result = ev(values, derivatives=True) if args.derivatives else ev(values)
     if args.json:
-        print(json.dumps(result.to_dict(), indent=2))
+        doc = result.to_dict()
+        if args.derivatives:
+            doc["derivatives"] = result.derivatives_dict()
+        print(json.dumps(doc, indent=2))
     else:
         print(report(result, model.name))
     if not result.ok:

@@ -150,8 +150,13 @@ class HopfResult:
             "criticality": self.criticality,
             "unstable_count": self.unstable_count,
             "stable_side": self.stable_side,
-            **({} if self._derivatives is None else {"derivatives": self._derivatives}),
         }
+
+    def derivatives_dict(self) -> dict[str, dict[str, float]] | None:
+        """The derivatives of l1, the critical value and omega, JSON-ready (None if missing)."""
+        if self._derivatives is None:
+            return None
+        return {q: dict(self._derivatives[q]) for q in ("l1", "critical_value", "omega")}
 
     def __repr__(self) -> str:
         if not self.ok:
