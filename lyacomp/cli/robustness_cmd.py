@@ -12,7 +12,11 @@ DESCRIPTION = """\
 Monte Carlo over the uncertain parameters of a model: the probability of a hard
 (subcritical) onset with a 95% Wilson interval, the samples without a usable Hopf
 point by status, quantiles of l1, critical value, frequency and amplitude
-coefficients, and a ranking of the parameters that drive l1.
+coefficients, and a ranking of the parameters that drive l1. Beside the Monte
+Carlo estimate: the reliability index beta (FORM, from exact derivatives; signed,
+negative when the nominal design is already hard), its design point and the
+first-order probability Phi(-beta), and the parameters ranked by exact local
+sensitivity times their spread.
 """
 
 EXAMPLE = """\
@@ -85,6 +89,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
     parser.add_argument(
         "--save", metavar="FILE", default=None, help="write every sample to FILE (.csv or .npz)"
     )
+    parser.add_argument(
+        "--no-reliability",
+        action="store_true",
+        help="skip the FORM reliability index and the local sensitivity ranking",
+    )
     from lyacomp.studies.cluster import add_cluster_args
 
     add_cluster_args(parser)
@@ -110,6 +119,7 @@ def run(args: argparse.Namespace) -> int:
             chunk_size=args.chunk_size,
             save=args.save,
             client=client,
+            reliability=not args.no_reliability,
         )
     if args.plot:
         from lyacomp.studies.plots_robustness import plot_robustness

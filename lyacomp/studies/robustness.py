@@ -30,6 +30,12 @@ import numpy as np
 from lyacomp.errors import StudyError
 from lyacomp.status import Criticality, Status
 from lyacomp.studies.maps import first_loss_of
+from lyacomp.studies.reliability import (
+    ReliabilityResult,
+    Sensitivity,
+    local_sensitivities,
+    reliability_index,
+)
 from lyacomp.studies.sample_store import open_store
 from lyacomp.studies.uncertainty import (
     METHODS,
@@ -216,6 +222,12 @@ class RobustnessResult:
     quantile_basis: int
     ranking: list[Driver]
     kept: dict[str, np.ndarray] = field(repr=False)
+    #: FORM answer beside the Monte Carlo estimate (None: not asked for or not available)
+    reliability: ReliabilityResult | None = None
+    #: why there is no FORM answer, when there is none
+    reliability_note: str | None = None
+    #: uncertain parameters ranked by |dl1/dp * spread| at the nominal design
+    sensitivity: list[Sensitivity] = field(default_factory=list)
 
     @property
     def probability_subcritical(self) -> float:
@@ -254,6 +266,18 @@ class RobustnessResult:
             },
             "quantile_basis": self.quantile_basis,
             "ranking": [d.to_dict() for d in self.ranking],
+            **self._form_dict(),
+            "sensitivity": [item.to_dict() for item in self.sensitivity],
+        }
+
+    def _form_dict(self) -> dict[str, Any]:
+        if self.reliability is None:
+            return {"reliability_index": None, "design_point": None, "reliability": None}
+        details = self.reliability.to_dict()
+        return {
+            "reliability_index": details.pop("reliability_index"),
+            "design_point": details.pop("design_point"),
+            "reliability": details,
         }
 
     def summary(self) -> str:
@@ -277,6 +301,10 @@ class RobustnessResult:
             f" ({self.subcritical} of {self.first_loss} samples where the Hopf point is the"
             f" first loss of stability; {pct} Wilson interval {lo:.6g} .. {hi:.6g})"
         )
+        if self.reliability is not None:
+            lines += ["  " + line for line in self.reliability.summary_lines()]
+        elif self.reliability_note:
+            lines.append(f"  no reliability index: {self.reliability_note}")
         if self.unstable_equilibrium:
             lines.append(
                 f"  Hopf point on an already unstable equilibrium (no soft/hard onset, not"
@@ -302,6 +330,16 @@ class RobustnessResult:
         lines.append("What drives l1 (rank regression; + pushes toward hard onset):")
         for d in self.ranking:
             lines.append(f"  {d.name:<20} srrc {d.srrc:+.3f}   spearman {d.spearman:+.3f}")
+        if self.sensitivity:
+            lines.append(
+                "Local sensitivity at the nominal design (exact dl1/dp times the parameter's"
+                " spread, dp per unit normal score; + pushes toward hard onset):"
+            )
+            for item in self.sensitivity:
+                lines.append(
+                    f"  {item.name:<20} {item.scaled:+.4g}   (dl1/dp {item.derivative:+.4g},"
+                    f" spread {item.spread:.4g})"
+                )
         lines.append(
             "Caution: a local, near-onset analysis of the model as written; no substitute "
             "for testing and for the codes and licensed practice of the field."
@@ -464,6 +502,7 @@ def run_robustness(
     progress: bool | None = None,
     save: str | Path | None = None,
     client: Any = None,
+    reliability: bool = True,
 ) -> RobustnessResult:
     """Monte Carlo over the uncertain parameters of a compiled model.
 
@@ -475,6 +514,8 @@ def run_robustness(
     (``interrupted`` is then True). ``save`` (.csv or .npz) writes every sample.
     ``client`` (a ``distributed.Client``) runs the chunks on a Dask cluster with the
     same result, bit for bit; ``save`` is then not available (only summaries travel).
+    ``reliability`` adds the FORM reliability index and the local sensitivity ranking
+    (models with a bifurcation parameter; :mod:`lyacomp.studies.reliability`).
     """
     samples = _check_count(samples, "samples", 1)
     chunk_size = _check_count(chunk_size, "chunk_size", 1)
@@ -559,6 +600,7 @@ def run_robustness(
     n_ok = int(counts[0])
     quantiles = _quantiles(kept, columns[spec.dimension :], levels)
     ranking = rank_drivers(kept_rows[:, : spec.dimension], kept["l1"], spec.names)
+    form, note, sensitivity = _first_order(ev, spec, fixed) if reliability else (None, None, [])
     return RobustnessResult(
         model=ev.model.name,
         samples=done,
@@ -582,7 +624,21 @@ def run_robustness(
         quantile_basis=len(kept_rows),
         ranking=ranking,
         kept=kept,
+        reliability=form,
+        reliability_note=note,
+        sensitivity=sensitivity,
     )
+
+
+def _first_order(
+    ev: Any, spec: UncertaintySpec, fixed: Mapping[str, float]
+) -> tuple[ReliabilityResult | None, str | None, list[Sensitivity]]:
+    """FORM index and local sensitivities, or the reason there are none."""
+    try:
+        form = reliability_index(ev, spec, fixed)
+    except StudyError as exc:
+        return None, str(exc), []
+    return form, None, local_sensitivities(ev, spec, fixed)
 
 
 def _quantiles(
