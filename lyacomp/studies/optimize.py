@@ -369,6 +369,7 @@ class RobustStatistic:
                 )
         self._key: bytes | None = None
         self._values: list[float | DesignPointError] = []
+        self._exact_key: bytes | None = None
 
     def _inputs(self, rows: np.ndarray) -> dict[str, np.ndarray | float]:
         n_rows, s = len(rows), self.samples
@@ -441,6 +442,8 @@ class RobustStatistic:
         return float(np.mean(expit(l1 / self.smoothing)))
 
     def __call__(self, x: Sequence[float] | np.ndarray) -> float:
+        if self._exact:
+            return self._exact_at(self.space._as_vector(x))[0]
         value = self._evaluate(self.space._as_vector(x))[0]
         if isinstance(value, DesignPointError):
             raise value
@@ -456,15 +459,34 @@ class RobustStatistic:
                     factors[:, i] = self.draws[:, j] / self._centre[j]
         return factors
 
-    def _exact_jac(self, x: np.ndarray) -> np.ndarray:
-        """The gradient from exact per-sample derivatives of l1 at ``x`` (one batch call):
-        the quantile's two order statistics (numpy's linear interpolation), or the mean
-        slope of the logistic ramp."""
+    @property
+    def _exact(self) -> bool:
+        return self.space.gradients == "exact" and (
+            self.statistic == "quantile" or self.smoothing is not None
+        )
+
+    def _exact_at(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        """Value and exact gradient at ``x`` from one batch call on the draws (cached)."""
+        key = x.tobytes()
+        if key != self._exact_key:
+            try:
+                self._exact_result: Any = self._exact_value_and_gradient(x)
+            except DesignPointError as exc:
+                self._exact_result = exc
+            self._exact_key = key
+        if isinstance(self._exact_result, DesignPointError):
+            raise self._exact_result
+        return self._exact_result
+
+    def _exact_value_and_gradient(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        """The statistic and its gradient from exact per-sample derivatives of l1: the
+        quantile's two order statistics (numpy's linear interpolation), or the mean slope
+        of the logistic ramp."""
         inputs = self._inputs(x[None, :])
         batch = self.space.ev.batch(inputs, threads=self.space.threads, derivatives=True)
         l1 = np.asarray(batch.l1, dtype=float)
         status = np.asarray(batch.status)
-        self._reduce(x, l1, status)  # raises when the statistic itself is undefined
+        value = self._reduce(x, l1, status)  # raises when the statistic is undefined
         cols = [self.space.ev.derivative_parameters.index(n) for n in self.space.free]
         grads = batch.derivatives["l1"][:, cols] * self._design_factors(x)
         good = status == 0
@@ -494,17 +516,15 @@ class RobustStatistic:
                 self.space.point(x),
                 "no_derivative",
             )
-        return grad
+        return value, grad
 
     def jac(self, x: Sequence[float] | np.ndarray) -> np.ndarray:
         """The gradient of the statistic: from exact derivatives (``gradients="exact"``,
         quantile or smoothed probability), else central differences on the same draws at
         every stencil row."""
         x = self.space._as_vector(x)
-        if self.space.gradients == "exact" and (
-            self.statistic == "quantile" or self.smoothing is not None
-        ):
-            return self._exact_jac(x)
+        if self._exact:
+            return self._exact_at(x)[1]
         values = self._evaluate(x)
         for value in values:
             if isinstance(value, DesignPointError):
