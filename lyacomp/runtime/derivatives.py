@@ -54,10 +54,10 @@ def batch_derivatives(
     missing = arrays["status"] != 0
     out = {}
     for q in SCALAR_QUANTITIES:
-        a = arrays[q][keep].T.copy()
+        a = arrays[q][keep].T  # the fancy index made a copy already
         a[missing] = math.nan
         out[q] = a.reshape(shape + (len(keep),))
-    eq = np.moveaxis(arrays["equilibrium"][keep], -1, 0).copy()
+    eq = np.moveaxis(arrays["equilibrium"][keep], -1, 0)
     eq[missing] = math.nan
     out["equilibrium"] = eq.reshape(shape + eq.shape[1:])
     return out
