@@ -170,6 +170,10 @@ def test_equilibrium_derivatives_solve_the_linearized_equations(case):
 def test_batch_derivatives_match_single_calls():
     # Source: common practice, no source (batch and scalar paths compute the same numbers).
     ev = lyacomp.compile(_file_model("m3_servo_integral.toml"))
+    # A plain build has no derivative entry points (no cost); the first request builds them.
+    assert not hasattr(ev.lib, "lyc_evaluate_derivatives")
+    eager = lyacomp.compile(_file_model("m3_servo_integral.toml"), derivatives=True)
+    assert hasattr(eager.lib, "lyc_evaluate_derivatives")
     drive = np.array([1.9, 2.0, 2.1, 1e6])
     batch = ev.batch(drive=drive, derivatives=True)
     names = ev.derivative_parameters

@@ -193,6 +193,7 @@ class Evaluator:
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
+        self._derivative_twin: Evaluator | None = None
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -253,25 +254,23 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(
-        self,
-        params: Mapping[str, float] | None = None,
-        /,
-        *,
-        derivatives: bool = False,
-        **values: float,
-    ) -> HopfResult:
+    def __call__(self, params: Mapping[str, float] | None = None, /, **values: Any) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
         Every value must be one real number (see :meth:`batch` for the rules). With
         ``derivatives=True`` the result also carries the exact derivatives of l1, the
         critical value, omega and the equilibrium with respect to every parameter other
-        than the bifurcation parameter (``result.derivatives``), from the same C call.
-        A parameter named ``derivatives`` goes in the mapping.
+        than the bifurcation parameter (``result.derivatives``), from the same C call. In a
+        model with a parameter named ``derivatives`` that keyword is the parameter; use
+        :meth:`evaluate_derivatives` then.
         """
+        if "derivatives" in values and "derivatives" not in self._index:
+            flag = values.pop("derivatives")
+            if not isinstance(flag, bool | np.bool_):
+                raise EvaluationError(f"derivatives must be True or False, got {_describe(flag)}")
+            if flag:
+                return self.evaluate_derivatives(params, **values)
         values = _names(params, values, "parameters")
-        if derivatives:
-            return self._call_derivatives(values)
         ffi = self.ffi
         row = self._row(values)
         p = ffi.new(self._params_type, row)
@@ -280,8 +279,17 @@ class Evaluator:
         self._evaluate(p, self._guess, start, self._options, res)
         return HopfResult(res[0], self.states, self.bifurcation)
 
+    def evaluate_derivatives(
+        self, params: Mapping[str, float] | None = None, /, **values: float
+    ) -> HopfResult:
+        """``ev(..., derivatives=True)``, also for models with a parameter of that name."""
+        return self._call_derivatives(_names(params, values, "parameters"))
+
     def _call_derivatives(self, values: dict[str, Any]) -> HopfResult:
-        entry = self._derivative_entry("_evaluate_derivatives")
+        twin = self._with_derivatives()
+        if twin is not self:
+            return twin._call_derivatives(values)
+        entry = getattr(self.lib, f"{PREFIX}_evaluate_derivatives")
         ffi = self.ffi
         row = self._row(values)
         p = ffi.new(self._params_type, row)
@@ -308,13 +316,23 @@ class Evaluator:
         ``BatchResult.derivatives`` arrays: model order without the bifurcation parameter."""
         return tuple(p for p in self.parameters if p != self.bifurcation)
 
-    def _derivative_entry(self, suffix: str) -> Any:
+    def _with_derivatives(self) -> Evaluator:
+        """This evaluator if its library has the derivative entry points, else the same
+        model built with them (once; cached like every build)."""
         if self.bifurcation is None:
             raise EvaluationError(
                 "derivatives need a bifurcation parameter: without one the given point is not "
                 "followed when a parameter changes (add [bifurcation] parameter = ... to the model)"
             )
-        return getattr(self.lib, f"{PREFIX}{suffix}")
+        if hasattr(self.lib, f"{PREFIX}_evaluate_derivatives"):
+            return self
+        if self._derivative_twin is None:
+            if _DERIVATIVE_BUILD is None:
+                raise InternalError("no derivative build hook registered; import lyacomp first")
+            self._derivative_twin = _DERIVATIVE_BUILD(
+                self.model, self.tolerances, self._build_config, self.state_guess
+            )
+        return self._derivative_twin
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
@@ -323,7 +341,6 @@ class Evaluator:
         /,
         *,
         threads: int | None = None,
-        derivatives: bool = False,
         **values: Any,
     ) -> BatchResult:
         """Evaluate arrays of parameter sets in C (OpenMP threads, GIL released):
@@ -338,10 +355,32 @@ class Evaluator:
         ``derivatives=True`` adds ``result.derivatives``: a mapping from ``"l1"``,
         ``"critical_value"`` and ``"omega"`` to arrays of shape ``shape + (parameters,)``
         and from ``"equilibrium"`` to ``shape + (parameters, states)``, the parameter axis
-        in the order of :attr:`derivative_parameters` (NaN where a sample is not ok).
+        in the order of :attr:`derivative_parameters` (NaN where a sample is not ok). In a
+        model with a parameter named ``derivatives`` that keyword is the parameter; use
+        :meth:`batch_derivatives` then.
         """
+        derivatives = False
+        if "derivatives" in values and "derivatives" not in self._index:
+            derivatives = values.pop("derivatives")
+            if not isinstance(derivatives, bool | np.bool_):
+                raise EvaluationError(
+                    f"derivatives must be True or False, got {_describe(derivatives)}"
+                )
+        return self._batch(params, threads, bool(derivatives), values)
+
+    def batch_derivatives(
+        self, params: Mapping[str, Any] | None = None, /, *, threads: int | None = None, **values
+    ) -> BatchResult:
+        """``ev.batch(..., derivatives=True)``, also for models with a parameter of that name."""
+        return self._batch(params, threads, True, values)
+
+    def _batch(
+        self, params: Mapping[str, Any] | None, threads: Any, derivatives: bool, values: dict
+    ) -> BatchResult:
         if derivatives:
-            self._derivative_entry("_evaluate_batch_derivatives")
+            twin = self._with_derivatives()
+            if twin is not self:
+                return twin._batch(params, threads, True, values)
         values = _names(params, values, "parameters")
         if set(values) - set(self._index):
             raise self._unknown(values)
@@ -450,13 +489,18 @@ class Evaluator:
 
 
 _REBUILD: Callable[..., Evaluator] | None = None
+_DERIVATIVE_BUILD: Callable[..., Evaluator] | None = None
 
 
-def register_rebuild(rebuild: Callable[..., Evaluator]) -> None:
-    """Set how unpickled evaluators are rebuilt (the pipeline registers itself on import,
-    so this layer does not import the pipeline back)."""
-    global _REBUILD
+def register_rebuild(
+    rebuild: Callable[..., Evaluator], derivative_build: Callable[..., Evaluator]
+) -> None:
+    """Set how unpickled evaluators are rebuilt and how the derivative entry points are
+    built on first use (the pipeline registers itself on import, so this layer does not
+    import the pipeline back)."""
+    global _REBUILD, _DERIVATIVE_BUILD
     _REBUILD = rebuild
+    _DERIVATIVE_BUILD = derivative_build
 
 
 def _restore(
