@@ -24,10 +24,10 @@ from .build import (
     new_build_dir,
     toolchain,
 )
-from .codegen import CSources, lower, render, templates_digest_input
+from .codegen import CSources, lower, lower_sensitivity, render, templates_digest_input
 from .codegen.lower_higher import lower_higher
 from .config import BuildConfig
-from .derive import derive
+from .derive import derive, derive_sensitivity
 from .derive.higher import derive_higher
 from .errors import BuildError, LyacompError
 from .model import Model, load_model
@@ -68,23 +68,43 @@ def generator_digest_input(root: Path) -> bytes:
 
 
 def generate(
-    model: Model, key: str = "0" * 64, prefix: str = PREFIX, header_name: str = "model.h"
+    model: Model,
+    key: str = "0" * 64,
+    prefix: str = PREFIX,
+    header_name: str = "model.h",
+    derivatives: bool = False,
 ) -> CSources:
-    """Derive and render the C sources of a model (no compilation)."""
-    derivatives = derive(model.symbolic())
-    lowered = lower(derivatives)
-    higher = lower_higher(derive_higher(derivatives))
-    return render(model, lowered, prefix=prefix, key=key, header_name=header_name, higher=higher)
+    """Derive and render the C sources of a model (no compilation); ``derivatives`` adds
+    the entry points with exact parameter derivatives (models with a bifurcation parameter;
+    their symbolic work grows quickly with the model, so it is built only when asked for)."""
+    derived = derive(model.symbolic())
+    lowered = lower(derived)
+    higher = lower_higher(derive_higher(derived))
+    # Exact parameter derivatives follow the Hopf point, so they need a bifurcation parameter.
+    sensitivity = None
+    if derivatives and model.bifurcation is not None:
+        sensitivity = lower_sensitivity(derived, derive_sensitivity(derived))
+    return render(
+        model,
+        lowered,
+        prefix=prefix,
+        key=key,
+        header_name=header_name,
+        higher=higher,
+        sensitivity=sensitivity,
+    )
 
 
-def model_key(model: Model, config: BuildConfig) -> str:
-    """Cache key: model, generator code, templates, compiler and flags, version, Python ABI."""
-    return _key(model, toolchain(config))
+def model_key(model: Model, config: BuildConfig, derivatives: bool = False) -> str:
+    """Cache key: model, generator code, templates, compiler and flags, version, Python ABI
+    (and whether the derivative entry points are in)."""
+    return _key(model, toolchain(config), derivatives)
 
 
-def _key(model: Model, tc: Toolchain) -> str:
+def _key(model: Model, tc: Toolchain, derivatives: bool = False) -> str:
     return cache_key(
         model.canonical(),
+        "with derivative entry points" if derivatives else "plain",
         generator_digest_input(PACKAGE_ROOT),
         templates_digest_input(),
         tc.identity(),
@@ -96,8 +116,12 @@ def compile_model(
     *,
     config: BuildConfig | None = None,
     tolerances: Tolerances | None = None,
+    derivatives: bool = False,
 ) -> Evaluator:
     """Compile a model (or a model file) into an :class:`Evaluator`, using the cache.
+
+    ``derivatives=True`` builds the exact-derivative entry points right away; otherwise
+    the first call that asks for derivatives builds them (a second cached library).
 
     A damaged cache entry (torn metadata, a library whose size or SHA-256 differs from
     the install record, a file where a folder belongs) is rebuilt with one warning.
@@ -107,7 +131,7 @@ def compile_model(
     config = config or BuildConfig.from_environment()
     tc = toolchain(config)
     try:
-        key, module = _build_or_load(model, config, tc)
+        key, module = _build_or_load(model, config, tc, derivatives)
     except BuildError:
         if not tc.remembered:
             raise
@@ -115,12 +139,14 @@ def compile_model(
         # record) must not fail every later build: probe once more and retry.
         log.warning("the build failed with remembered compiler flags; probing the compiler again")
         forget_probe(tc, config)
-        key, module = _build_or_load(model, config, toolchain(config))
+        key, module = _build_or_load(model, config, toolchain(config), derivatives)
     return Evaluator(model, module, key, tolerances or Tolerances(), config)
 
 
-def _build_or_load(model: Model, config: BuildConfig, tc: Toolchain) -> tuple[str, object]:
-    key = _key(model, tc)
+def _build_or_load(
+    model: Model, config: BuildConfig, tc: Toolchain, derivatives: bool = False
+) -> tuple[str, object]:
+    key = _key(model, tc, derivatives)
     start = time.perf_counter()
     entry, _problem = check_entry(config.cache_dir, key)
     if entry is None:
@@ -134,15 +160,22 @@ def _build_or_load(model: Model, config: BuildConfig, tc: Toolchain) -> tuple[st
                         entry_dir(config.cache_dir, key),
                         problem,
                     )
-                entry = _build(model, config, tc, key)
+                # plain builds keep the four-argument call (tests stand in for _build)
+                entry = (
+                    _build(model, config, tc, key, derivatives)
+                    if derivatives
+                    else _build(model, config, tc, key)
+                )
                 log.info("compiled %r in %.2f s", model.name, time.perf_counter() - start)
     else:
         log.info("loaded %r from cache", model.name)
     return key, load_extension(entry, lambda: _scratch_dir(config, key))
 
 
-def _build(model: Model, config: BuildConfig, tc: Toolchain, key: str) -> Entry:
-    sources = generate(model, key)
+def _build(
+    model: Model, config: BuildConfig, tc: Toolchain, key: str, derivatives: bool = False
+) -> Entry:
+    sources = generate(model, key, derivatives=derivatives)
     build_dir = new_build_dir(config.cache_dir, key)
     meta = build_extension(sources, tc, build_dir, key)
     meta["model"] = model.name
@@ -179,4 +212,12 @@ def _rebuild(
     return ev.with_guess(**state_guess)
 
 
-register_rebuild(_rebuild)
+def _derivative_build(
+    model: Model, tolerances: Tolerances, config: BuildConfig, state_guess: dict
+) -> Evaluator:
+    """The same model with the exact-derivative entry points (built on first use)."""
+    ev = compile_model(model, config=config, tolerances=tolerances, derivatives=True)
+    return ev.with_guess(**state_guess)
+
+
+register_rebuild(_rebuild, _derivative_build)

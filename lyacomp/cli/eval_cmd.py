@@ -74,6 +74,12 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         help="locate where the onset type switches (l1 = 0) along parameter NAME, starting "
         "from its value in the model or --set; JSON key degenerate_point",
     )
+    parser.add_argument(
+        "--derivatives",
+        action="store_true",
+        help="also the exact derivatives of l1, the critical value and omega with respect to "
+        "every parameter other than the bifurcation parameter (JSON key 'derivatives')",
+    )
     parser.set_defaults(func=run)
 
 
@@ -150,8 +156,24 @@ def report(result: HopfResult, model_name: str) -> str:
                 f"~ K*sqrt(|{mu} - {mu}_c|) with K = {amp}"
             )
     lines += l2_lines(result)
+    lines.extend(derivative_lines(result))
     lines.append("caution: " + CAUTION)
     return "\n".join(lines)
+
+
+def derivative_lines(result: HopfResult) -> list[str]:
+    """The exact derivatives as a small table (nothing when they were not asked for)."""
+    table = result.derivatives_dict()
+    if table is None:
+        return []
+    mu = result.bifurcation_parameter
+    lines = [f"  exact derivatives (the Hopf point followed in {mu}):"]
+    width = max(len(p) for p in table["l1"]) if table["l1"] else 0
+    lines.append(f"    {'':{width}}  {'d l1':>17} {'d ' + str(mu) + '_c':>17} {'d omega':>17}")
+    for name in table["l1"]:
+        row = (table[q][name] for q in ("l1", "critical_value", "omega"))
+        lines.append(f"    {name:{width}}  " + " ".join(f"{v:17.10g}" for v in row))
+    return lines
 
 
 def _failure_text(result: HopfResult, model: Model) -> str:
@@ -173,13 +195,19 @@ def run(args: argparse.Namespace) -> int:
         ev = ev.with_guess(guesses)
     if args.degenerate_tol is not None:
         ev = ev.with_tolerances(degenerate_atol=args.degenerate_tol)
-    if args.l2:
+    if args.derivatives:
+        result = ev(
+            values, derivatives=True, l2=args.l2, operating=args.operating, search=args.search
+        )
+    elif args.l2:
         result = ev.evaluate_l2(values, operating=args.operating, search=args.search)
     else:
         result = ev(values, operating=args.operating, search=args.search)
     point = ev.degenerate_point(args.degenerate_in, values) if args.degenerate_in else None
     if args.json:
         out = result.to_dict()
+        if args.derivatives:
+            out["derivatives"] = result.derivatives_dict()
         if point is not None:
             out["degenerate_point"] = point.to_dict()
         print(json.dumps(out, indent=2))

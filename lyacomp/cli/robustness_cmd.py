@@ -12,7 +12,11 @@ DESCRIPTION = """\
 Monte Carlo over the uncertain parameters of a model: the probability of a hard
 (subcritical) onset with a 95% Wilson interval, the samples without a usable Hopf
 point by status, quantiles of l1, critical value, frequency and amplitude
-coefficients, and a ranking of the parameters that drive l1.
+coefficients, and a ranking of the parameters that drive l1. Beside the Monte
+Carlo estimate: the reliability index beta (FORM, from exact derivatives; signed,
+negative when the nominal design is already hard), its design point and the
+first-order probability Phi(-beta), and the parameters ranked by exact local
+sensitivity times their spread.
 """
 
 EXAMPLE = """\
@@ -108,6 +112,11 @@ def register(subparsers: argparse._SubParsersAction) -> None:
         metavar="K",
         help="hard-onset samples kept for --hard-samples and the JSON count (default 10000)",
     )
+    parser.add_argument(
+        "--no-reliability",
+        action="store_true",
+        help="skip the FORM reliability index and the local sensitivity ranking",
+    )
     from lyacomp.studies.cluster import add_cluster_args
 
     add_cluster_args(parser)
@@ -135,6 +144,7 @@ def run(args: argparse.Namespace) -> int:
             keep_hard=args.keep_hard,
             client=client,
             branch_steps=args.branch_steps,
+            reliability=not args.no_reliability,
         )
     if args.hard_samples:
         result.write_hard_samples(args.hard_samples)

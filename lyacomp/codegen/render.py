@@ -16,6 +16,7 @@ from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..status import Status
 from .lower import Lowered
 from .lower_higher import LoweredHigher
+from .lower_sensitivity import SensitivityLowered
 
 
 def templates_dir() -> Path:
@@ -89,9 +90,11 @@ def render(
     key: str,
     header_name: str,
     higher: LoweredHigher,
+    sensitivity: SensitivityLowered | None = None,
 ) -> CSources:
     """Render the C unit (for cffi and standalone use) of one lowered model; ``higher``
-    carries the second-Lyapunov-coefficient kernel."""
+    carries the second-Lyapunov-coefficient kernel; with ``sensitivity`` (models with a
+    bifurcation parameter) the derivative entry points too."""
     env = _environment()
     if not isinstance(key, str) or not _KEY.fullmatch(key):
         raise ModelError("the cache key must be 16 to 64 lowercase hexadecimal digits")
@@ -133,6 +136,8 @@ def render(
         "solve_mu": lowered.bif_index >= 0 and lowered.critical_value is None,
         # n <= 3: the Hopf point solves a reduced system (trace or Routh-Hurwitz) and the
         # spectrum follows in closed form, so no eigenvalue routine is needed.
+        # Exact parameter derivatives (templates/stage_sensitivity.c.j2), or None.
+        "sens": sensitivity,
         "reduced": lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 3,
         "n_delays": lowered.n_delays,
     }

@@ -18,6 +18,7 @@ from ..model import Model
 from ..status import Criticality
 from . import operating as op
 from .degenerate import DegeneratePoint, locate_degenerate
+from .derivatives import batch_derivative_buffers, batch_derivatives, derivatives_of
 from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
@@ -111,6 +112,16 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
     return {**mapping, **keywords}
 
 
+def _derivatives_need_guess_search(method: str, guess: Any = None) -> None:
+    """Exact derivatives come with the guess-based search from the nominal solution."""
+    if method == "operating" or guess is not None:
+        raise EvaluationError(
+            "derivatives=True runs the guess-based search from the nominal solution; it cannot"
+            " be combined with the operating-point search or per-sample guesses (pass"
+            " search='guess' and no guess=)"
+        )
+
+
 @dataclass(frozen=True)
 class Tolerances:
     """Numerical settings of an evaluation (they do not change the compiled code)."""
@@ -201,6 +212,7 @@ class Evaluator:
         self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
         self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient")
         self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point")
+        self._derivative_twin: Evaluator | None = None
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -281,13 +293,24 @@ class Evaluator:
         ``search`` go in the mapping. ``l2=True`` also computes the second Lyapunov
         coefficient (it is computed anyway when l1 is degenerate); in a model with a
         parameter named ``l2`` that keyword is the parameter, and :meth:`evaluate_l2`
-        asks for l2.
+        asks for l2. With ``derivatives=True`` the result also carries the exact
+        derivatives of l1, the critical value, omega and the equilibrium with respect to
+        every parameter other than the bifurcation parameter (``result.derivatives``), from
+        the same C call (guess-based search); in a model with a parameter named
+        ``derivatives`` that keyword is the parameter: use :meth:`evaluate_derivatives`.
         """
         want_l2 = False
         if "l2" in values and "l2" not in self._index:
             want_l2 = values.pop("l2")
             if not isinstance(want_l2, bool | np.bool_):
                 raise EvaluationError(f"l2 must be True or False, got {_describe(want_l2)}")
+        if "derivatives" in values and "derivatives" not in self._index:
+            flag = values.pop("derivatives")
+            if not isinstance(flag, bool | np.bool_):
+                raise EvaluationError(f"derivatives must be True or False, got {_describe(flag)}")
+            if flag:
+                _derivatives_need_guess_search(op.chosen_search(self, search, operating))
+                return self._call_derivatives(_names(params, values, "parameters"), bool(want_l2))
         return self._evaluate_one(params, values, bool(want_l2), operating, search)
 
     def evaluate_l2(
@@ -383,6 +406,69 @@ class Evaluator:
             raise self._unknown(values) from None
         return locate_degenerate(self, name, row, self.bifurcation not in values)
 
+    def evaluate_derivatives(
+        self, params: Mapping[str, float] | None = None, /, **values: float
+    ) -> HopfResult:
+        """``ev(..., derivatives=True)``, also for models with a parameter of that name."""
+        return self._call_derivatives(_names(params, values, "parameters"))
+
+    def _call_derivatives(self, values: dict[str, Any], l2: bool = False) -> HopfResult:
+        twin = self._with_derivatives()
+        if twin is not self:
+            return twin._call_derivatives(values, l2)
+        entry = getattr(self.lib, f"{PREFIX}_evaluate_derivatives")
+        ffi = self.ffi
+        row = self._row(values)
+        p = ffi.new(self._params_type, row)
+        res = ffi.new(self._result_type)
+        der = ffi.new(f"{PREFIX}_derivatives *")
+        start = ffi.NULL if self.bifurcation in values else self._start
+        entry(p, self._guess, start, self._options, res, der)
+        search = SearchInfo("guess", row[self._index[self.bifurcation]])
+        result = HopfResult(
+            res,
+            self.states,
+            self.bifurcation,
+            search,
+            derivatives=derivatives_of(der, self.parameters, self),
+        )
+        if l2 or res.criticality == Criticality.DEGENERATE:
+            self._second_coefficient(p, res, result)
+        return result
+
+    def _row(self, values: Mapping[str, Any]) -> list[float]:
+        row = self._nominal.copy()
+        try:
+            for name, value in values.items():
+                row[self._index[name]] = _real_scalar(value, f"parameter {name}")
+        except KeyError:
+            raise self._unknown(values) from None
+        return row
+
+    @property
+    def derivative_parameters(self) -> tuple[str, ...]:
+        """The parameters derivatives are taken for, in the order of the columns of
+        ``BatchResult.derivatives`` arrays: model order without the bifurcation parameter."""
+        return tuple(p for p in self.parameters if p != self.bifurcation)
+
+    def _with_derivatives(self) -> Evaluator:
+        """This evaluator if its library has the derivative entry points, else the same
+        model built with them (once; cached like every build)."""
+        if self.bifurcation is None:
+            raise EvaluationError(
+                "derivatives need a bifurcation parameter: without one the given point is not "
+                "followed when a parameter changes (add [bifurcation] parameter = ... to the model)"
+            )
+        if hasattr(self.lib, f"{PREFIX}_evaluate_derivatives"):
+            return self
+        if self._derivative_twin is None:
+            if _DERIVATIVE_BUILD is None:
+                raise InternalError("no derivative build hook registered; import lyacomp first")
+            self._derivative_twin = _DERIVATIVE_BUILD(
+                self.model, self.tolerances, self._build_config, self.state_guess
+            )
+        return self._derivative_twin
+
     # -- many parameter sets ----------------------------------------------------------
     def batch(
         self,
@@ -414,8 +500,45 @@ class Evaluator:
         ``search`` and ``operating`` are those of a scalar call; ``operating`` may be an
         array (one operating value per sample, broadcast like the parameters). ``guess``
         belongs to the guess-based search and is refused with the operating search.
+
+        ``derivatives=True`` adds ``result.derivatives``: a mapping from ``"l1"``,
+        ``"critical_value"`` and ``"omega"`` to arrays of shape ``shape + (parameters,)``
+        and from ``"equilibrium"`` to ``shape + (parameters, states)``, the parameter axis
+        in the order of :attr:`derivative_parameters` (NaN where a sample is not ok). In a
+        model with a parameter named ``derivatives`` that keyword is the parameter; use
+        :meth:`batch_derivatives` then.
         """
+        derivatives = False
+        if "derivatives" in values and "derivatives" not in self._index:
+            derivatives = values.pop("derivatives")
+            if not isinstance(derivatives, bool | np.bool_):
+                raise EvaluationError(
+                    f"derivatives must be True or False, got {_describe(derivatives)}"
+                )
+        return self._batch(params, threads, bool(derivatives), values, guess, operating, search)
+
+    def batch_derivatives(
+        self, params: Mapping[str, Any] | None = None, /, *, threads: int | None = None, **values
+    ) -> BatchResult:
+        """``ev.batch(..., derivatives=True)``, also for models with a parameter of that name."""
+        return self._batch(params, threads, True, values, None, None, None)
+
+    def _batch(
+        self,
+        params: Mapping[str, Any] | None,
+        threads: Any,
+        derivatives: bool,
+        values: dict,
+        guess: Mapping[str, Any] | None,
+        operating: Any,
+        search: str | None,
+    ) -> BatchResult:
         method = op.chosen_search(self, search, operating)
+        if derivatives:
+            _derivatives_need_guess_search(method, guess)
+            twin = self._with_derivatives()
+            if twin is not self:
+                return twin._batch(params, threads, True, values, guess, operating, search)
         values = _names(params, values, "parameters")
         if guess is not None and not isinstance(guess, Mapping) and "guess" in self._index:
             # a parameter named `guess` given as a keyword (a mapping is never its value)
@@ -524,19 +647,25 @@ class Evaluator:
                 )
             else:
                 start = ffi.NULL if self.bifurcation in values else self._start
-                self._evaluate_batch(
-                    count,
-                    c_params,
-                    c_strides,
-                    self._guess,
-                    start,
-                    self._options,
-                    threads,
-                    c_out,
-                )
+                args = (count, c_params, c_strides, self._guess, start, self._options, threads)
+                if derivatives:
+                    c_der, der_out = batch_derivative_buffers(ffi, count, len(self.parameters), n)
+                    self.lib.lyc_evaluate_batch_derivatives(*args, c_out, c_der)
+                else:
+                    self._evaluate_batch(*args, c_out)
+        elif derivatives:
+            der_out = batch_derivative_buffers(self.ffi, 0, len(self.parameters), n)[1]
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
-        return BatchResult(states=self.states, **vector, **matrix, search=method, **extra)
+        result = BatchResult(states=self.states, **vector, **matrix, search=method, **extra)
+        if derivatives:
+            keep = [k for k, p in enumerate(self.parameters) if p != self.bifurcation]
+            result = replace(
+                result,
+                derivatives=batch_derivatives(der_out, keep, shape),
+                derivative_parameters=self.derivative_parameters,
+            )
+        return result
 
     def _batch_operating(
         self,
@@ -645,13 +774,18 @@ class Evaluator:
 
 
 _REBUILD: Callable[..., Evaluator] | None = None
+_DERIVATIVE_BUILD: Callable[..., Evaluator] | None = None
 
 
-def register_rebuild(rebuild: Callable[..., Evaluator]) -> None:
-    """Set how unpickled evaluators are rebuilt (the pipeline registers itself on import,
-    so this layer does not import the pipeline back)."""
-    global _REBUILD
+def register_rebuild(
+    rebuild: Callable[..., Evaluator], derivative_build: Callable[..., Evaluator]
+) -> None:
+    """Set how unpickled evaluators are rebuilt and how the derivative entry points are
+    built on first use (the pipeline registers itself on import, so this layer does not
+    import the pipeline back)."""
+    global _REBUILD, _DERIVATIVE_BUILD
     _REBUILD = rebuild
+    _DERIVATIVE_BUILD = derivative_build
 
 
 def _restore(

@@ -57,7 +57,15 @@ class HopfResult:
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    __slots__ = ("_raw", "_states", "_bifurcation", "_search", "_l2", "_radius_gain")
+    __slots__ = (
+        "_raw",
+        "_states",
+        "_bifurcation",
+        "_search",
+        "_l2",
+        "_radius_gain",
+        "_derivatives",
+    )
 
     def __init__(
         self,
@@ -65,10 +73,13 @@ class HopfResult:
         states: tuple[str, ...],
         bifurcation: str | None,
         search: SearchInfo | None = None,
+        *,
+        derivatives: dict[str, dict] | None = None,
     ):
         self._raw = raw
         self._states = states
         self._bifurcation = bifurcation
+        self._derivatives = derivatives
         self._search = search
         self._l2: float | None = None
         self._radius_gain: dict[str, float] = {}
@@ -105,6 +116,14 @@ class HopfResult:
         return cycle_fold(
             self.l1, self._l2, self.omega, transversality, critical, self._radius_gain
         )
+
+    @property
+    def derivatives(self) -> dict[str, dict] | None:
+        """Exact derivatives when asked for (``ev(..., derivatives=True)``) and ok, else None:
+        ``{"l1" | "critical_value" | "omega": {parameter: value},
+        "equilibrium": {state: {parameter: value}}}`` over the parameters other than the
+        bifurcation parameter."""
+        return self._derivatives
 
     @property
     def status(self) -> str:
@@ -217,6 +236,12 @@ class HopfResult:
             out["cycle_fold"] = None if fold is None else fold.to_dict()
         return out
 
+    def derivatives_dict(self) -> dict[str, dict[str, float]] | None:
+        """The derivatives of l1, the critical value and omega, JSON-ready (None if missing)."""
+        if self._derivatives is None:
+            return None
+        return {q: dict(self._derivatives[q]) for q in ("l1", "critical_value", "omega")}
+
     def __repr__(self) -> str:
         if not self.ok:
             return f"HopfResult(status={self.status!r})"
@@ -255,6 +280,11 @@ class BatchResult:
     """Operating search: mu where stability was first lost (NaN where not seen)."""
     search_steps: np.ndarray | None = None
     """Operating search: continuation steps per sample."""
+    derivatives: dict[str, np.ndarray] | None = None
+    """With ``batch(..., derivatives=True)``: ``"l1"``, ``"critical_value"``, ``"omega"``
+    shaped ``shape + (parameters,)``, ``"equilibrium"`` shaped ``shape + (parameters,
+    states)``; the parameter axis follows ``derivative_parameters``."""
+    derivative_parameters: tuple[str, ...] = ()
 
     def __len__(self) -> int:
         return int(self.status.size)

@@ -42,6 +42,9 @@ from lyacomp.studies.uncertainty import LogNormal, chunk_rng, draw_scores
 
 SCALARS = ("l1", "critical_value", "omega", "transversality", "period")
 FAILURE_POLICIES = ("raise", "inf")
+GRADIENTS = ("exact", "differences")
+EXACT_OUTPUTS = ("l1", "critical_value", "omega", "period")
+"""Outputs whose gradient comes from the exact derivatives (``gradients="exact"``)."""
 
 
 class DesignPointError(StudyError):
@@ -78,6 +81,10 @@ class DesignSpace:
 
     ``step`` is the relative central-difference step: ``h_i = step * max(|x_i|, s_i)``
     with ``s_i`` the magnitude of the starting value (1 where that is 0).
+    ``gradients="exact"`` (default) takes the gradients of l1, the critical value, omega
+    and the period from the exact derivatives of one evaluation at ``x``
+    (``batch(..., derivatives=True)``); the other outputs, and every output with
+    ``gradients="differences"``, use the central-difference stencil.
     """
 
     def __init__(
@@ -88,8 +95,11 @@ class DesignSpace:
         *,
         step: float = 1e-5,
         threads: int | None = None,
+        gradients: str = "exact",
     ):
         free = list(free)
+        if gradients not in GRADIENTS:
+            raise StudyError(f"gradients must be one of {', '.join(GRADIENTS)}; got {gradients!r}")
         if not free:
             raise StudyError("name at least one free parameter to optimize over")
         unknown = [n for n in [*free, *(fixed or {})] if n not in ev.parameters]
@@ -118,6 +128,15 @@ class DesignSpace:
         self.threads = threads
         self._cache_key: bytes | None = None
         self._cache: Any = None
+        # exact derivatives need a bifurcation parameter (the Hopf point is followed)
+        self.gradients = gradients if ev.bifurcation is not None else "differences"
+        self._exact_key: bytes | None = None
+        self._exact: Any = None
+        self._columns = (
+            [ev.derivative_parameters.index(n) for n in self.free]
+            if (self.gradients == "exact")
+            else []
+        )
 
     def point(self, x: np.ndarray) -> dict[str, float]:
         """The free parameters of ``x`` by name."""
@@ -152,6 +171,25 @@ class DesignSpace:
             self._cache_key = key
         return self._cache
 
+    def evaluate_exact(self, x: Sequence[float] | np.ndarray) -> Any:
+        """The batch result at ``x`` alone with exact derivatives (one call, cached)."""
+        x = self._as_vector(x)
+        key = x.tobytes()
+        if key != self._exact_key:
+            inputs = {**self.fixed, **{n: x[i : i + 1] for i, n in enumerate(self.free)}}
+            self._exact = self.ev.batch(inputs, threads=self.threads, derivatives=True)
+            self._exact_key = key
+        return self._exact
+
+    def exact_gradient(self, batch: Any, output: str) -> np.ndarray:
+        """d output / d free parameters at the single sample of ``batch``."""
+        der = batch.derivatives
+        if output == "period":
+            # period = 2 pi / omega
+            omega = float(batch.omega[0])
+            return -2.0 * math.pi / omega**2 * der["omega"][0, self._columns]
+        return np.asarray(der[output][0, self._columns], dtype=float)
+
     def output(self, name: str, *, maximize: bool = False, on_failure: str = "raise"):
         """An output as a scipy objective: call for the value, ``.jac`` for the gradient."""
         return OutputFunction(self, name, sign=-1.0 if maximize else 1.0, on_failure=on_failure)
@@ -167,6 +205,10 @@ class DesignSpace:
         violating = math.inf if math.isfinite(upper) else -math.inf
         fun = OutputFunction(self, name, on_failure=on_failure, failure_value=violating)
         return NonlinearConstraint(fun, lower, upper, jac=lambda x: fun.jac(x)[None, :])
+
+    def uses_exact(self, output: str) -> bool:
+        """True when the gradient of ``output`` comes from the exact derivatives."""
+        return self.gradients == "exact" and output in EXACT_OUTPUTS
 
 
 class OutputFunction:
@@ -204,7 +246,8 @@ class OutputFunction:
 
     def __call__(self, x: Sequence[float] | np.ndarray) -> float:
         x = self.space._as_vector(x)
-        batch = self.space.evaluate(x)
+        exact = self.space.uses_exact(self.output)
+        batch = self.space.evaluate_exact(x) if exact else self.space.evaluate(x)
         code = int(batch.status[0])
         if code != 0:
             if self.on_failure == "inf":
@@ -212,9 +255,21 @@ class OutputFunction:
             raise self._fail(x, code, f"{self.output} is undefined")
         return self.sign * float(self._get(batch)[0])
 
+    def value_and_gradient(self, x: Sequence[float] | np.ndarray) -> tuple[float, np.ndarray]:
+        """Value and gradient together, for ``minimize(f.value_and_gradient, x0, jac=True)``."""
+        return self(x), self.jac(x)
+
     def jac(self, x: Sequence[float] | np.ndarray) -> np.ndarray:
-        """Central differences from the cached stencil; one-sided next to a failure."""
+        """The exact gradient (see :class:`DesignSpace`), else central differences from the
+        cached stencil, one-sided next to a failure."""
         x = self.space._as_vector(x)
+        if self.space.uses_exact(self.output):
+            batch = self.space.evaluate_exact(x)
+            code = int(batch.status[0])
+            grad = self.space.exact_gradient(batch, self.output) if code == 0 else None
+            if grad is None or not np.isfinite(grad).all():
+                raise self._fail(x, code, f"the gradient of {self.output} is undefined")
+            return self.sign * grad
         batch = self.space.evaluate(x)
         status = np.asarray(batch.status)
         if status[0] != 0:
@@ -319,6 +374,7 @@ class RobustStatistic:
         self.client = client
         self._key: bytes | None = None
         self._values: list[float | DesignPointError] = []
+        self._exact_key: bytes | None = None
 
     def _inputs(self, rows: np.ndarray) -> dict[str, np.ndarray | float]:
         n_rows, s = len(rows), self.samples
@@ -400,14 +456,89 @@ class RobustStatistic:
         return float(np.mean(expit(l1 / self.smoothing)))
 
     def __call__(self, x: Sequence[float] | np.ndarray) -> float:
+        if self._exact:
+            return self._exact_at(self.space._as_vector(x))[0]
         value = self._evaluate(self.space._as_vector(x))[0]
         if isinstance(value, DesignPointError):
             raise value
         return value
 
+    def _design_factors(self, x: np.ndarray) -> np.ndarray:
+        """d(parameter value of each draw) / d(design value), (samples, free)."""
+        factors = np.ones((self.samples, len(x)))
+        for i, name in enumerate(self.space.free):
+            if name in self.spec.names:
+                j = self.spec.names.index(name)
+                if self._scaled[j]:
+                    factors[:, i] = self.draws[:, j] / self._centre[j]
+        return factors
+
+    @property
+    def _exact(self) -> bool:
+        return self.space.gradients == "exact" and (
+            self.statistic == "quantile" or self.smoothing is not None
+        )
+
+    def _exact_at(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        """Value and exact gradient at ``x`` from one batch call on the draws (cached)."""
+        key = x.tobytes()
+        if key != self._exact_key:
+            try:
+                self._exact_result: Any = self._exact_value_and_gradient(x)
+            except DesignPointError as exc:
+                self._exact_result = exc
+            self._exact_key = key
+        if isinstance(self._exact_result, DesignPointError):
+            raise self._exact_result
+        return self._exact_result
+
+    def _exact_value_and_gradient(self, x: np.ndarray) -> tuple[float, np.ndarray]:
+        """The statistic and its gradient from exact per-sample derivatives of l1: the
+        quantile's two order statistics (numpy's linear interpolation), or the mean slope
+        of the logistic ramp."""
+        inputs = self._inputs(x[None, :])
+        batch = self.space.ev.batch(inputs, threads=self.space.threads, derivatives=True)
+        l1 = np.asarray(batch.l1, dtype=float)
+        status = np.asarray(batch.status)
+        value = self._reduce(x, l1, status)  # raises when the statistic is undefined
+        cols = [self.space.ev.derivative_parameters.index(n) for n in self.space.free]
+        grads = batch.derivatives["l1"][:, cols] * self._design_factors(x)
+        good = status == 0
+        if self.statistic == "quantile":
+            if self.on_failure == "exclude":
+                l1, grads = l1[good], grads[good]
+            else:
+                l1 = np.where(good, l1, math.inf)
+            order = np.argsort(l1, kind="stable")
+            position = self.level * (len(l1) - 1)
+            low = int(math.floor(position))
+            weight = position - low
+            grad = (1.0 - weight) * grads[order[low]]
+            if weight > 0.0:
+                grad = grad + weight * grads[order[low + 1]]
+        else:
+            from scipy.special import expit
+
+            t = l1[good] / self.smoothing
+            slope = expit(t) * (1.0 - expit(t)) / self.smoothing
+            grad = (slope[:, None] * grads[good]).sum(axis=0) / (
+                len(l1) if self.on_failure != "exclude" else good.sum()
+            )
+        if not np.isfinite(grad).all():
+            raise DesignPointError(
+                "an exact derivative is missing at the samples that set the statistic",
+                self.space.point(x),
+                "no_derivative",
+            )
+        return value, grad
+
     def jac(self, x: Sequence[float] | np.ndarray) -> np.ndarray:
-        """Central differences of the statistic, on the same draws at every stencil row."""
+        """The gradient of the statistic: from exact derivatives (``gradients="exact"``,
+        quantile or smoothed probability), else central differences on the same draws at
+        every stencil row."""
         x = self.space._as_vector(x)
+        if self._exact:
+            return self._exact_at(x)[1]
         values = self._evaluate(x)
         for value in values:
             if isinstance(value, DesignPointError):

@@ -30,6 +30,12 @@ import numpy as np
 from lyacomp.errors import StudyError
 from lyacomp.status import Criticality, Status
 from lyacomp.studies.maps import first_loss_of
+from lyacomp.studies.reliability import (
+    ReliabilityResult,
+    Sensitivity,
+    local_sensitivities,
+    reliability_index,
+)
 from lyacomp.studies.sample_store import open_store
 from lyacomp.studies.uncertainty import (
     METHODS,
@@ -232,6 +238,12 @@ class RobustnessResult:
     #: a uniform random subset (at most ``keep_hard``) of the first-loss samples with a
     #: hard onset, columns as ``kept``: the designs to look at first
     hard_samples: dict[str, np.ndarray] = field(repr=False, default_factory=dict)
+    #: FORM answer beside the Monte Carlo estimate (None: not asked for or not available)
+    reliability: ReliabilityResult | None = None
+    #: why there is no FORM answer, when there is none
+    reliability_note: str | None = None
+    #: uncertain parameters ranked by |dl1/dp * spread| at the nominal design
+    sensitivity: list[Sensitivity] = field(default_factory=list)
 
     @property
     def probability_subcritical(self) -> float:
@@ -273,6 +285,18 @@ class RobustnessResult:
             "quantile_basis": self.quantile_basis,
             "ranking": [d.to_dict() for d in self.ranking],
             "hard_samples_kept": len(next(iter(self.hard_samples.values()), ())),
+            **self._form_dict(),
+            "sensitivity": [item.to_dict() for item in self.sensitivity],
+        }
+
+    def _form_dict(self) -> dict[str, Any]:
+        if self.reliability is None:
+            return {"reliability_index": None, "design_point": None, "reliability": None}
+        details = self.reliability.to_dict()
+        return {
+            "reliability_index": details.pop("reliability_index"),
+            "design_point": details.pop("design_point"),
+            "reliability": details,
         }
 
     def write_hard_samples(self, path: str | Path) -> int:
@@ -310,6 +334,10 @@ class RobustnessResult:
             f" ({self.subcritical} of {self.first_loss} samples where the Hopf point is the"
             f" first loss of stability; {pct} Wilson interval {lo:.6g} .. {hi:.6g})"
         )
+        if self.reliability is not None:
+            lines += ["  " + line for line in self.reliability.summary_lines()]
+        elif self.reliability_note:
+            lines.append(f"  no reliability index: {self.reliability_note}")
         if self.unstable_equilibrium:
             lines.append(
                 f"  Hopf point on an already unstable equilibrium (no soft/hard onset, not"
@@ -347,6 +375,16 @@ class RobustnessResult:
         lines.append("What drives l1 (rank regression; + pushes toward hard onset):")
         for d in self.ranking:
             lines.append(f"  {d.name:<20} srrc {d.srrc:+.3f}   spearman {d.spearman:+.3f}")
+        if self.sensitivity:
+            lines.append(
+                "Local sensitivity at the nominal design (exact dl1/dp times the parameter's"
+                " spread, dp per unit normal score; + pushes toward hard onset):"
+            )
+            for item in self.sensitivity:
+                lines.append(
+                    f"  {item.name:<20} {item.scaled:+.4g}   (dl1/dp {item.derivative:+.4g},"
+                    f" spread {item.spread:.4g})"
+                )
         lines.append(
             "Caution: a local, near-onset analysis of the model as written; no substitute "
             "for testing and for the codes and licensed practice of the field."
@@ -581,6 +619,7 @@ def run_robustness(
     save: str | Path | None = None,
     client: Any = None,
     branch_steps: int = BRANCH_STEPS,
+    reliability: bool = True,
 ) -> RobustnessResult:
     """Monte Carlo over the uncertain parameters of a compiled model.
 
@@ -597,6 +636,8 @@ def run_robustness(
     ``branch_steps`` sets the continuation that tells whether each sample's Hopf point is
     on the nominal branch (:func:`off_nominal_branch`; it costs ``branch_steps`` more
     evaluations per sample; 0 skips it).
+    ``reliability`` adds the FORM reliability index and the local sensitivity ranking
+    (models with a bifurcation parameter; :mod:`lyacomp.studies.reliability`).
     """
     samples = _check_count(samples, "samples", 1)
     chunk_size = _check_count(chunk_size, "chunk_size", 1)
@@ -693,6 +734,7 @@ def run_robustness(
     n_ok = int(counts[0])
     quantiles = _quantiles(kept, columns[spec.dimension :], levels)
     ranking = rank_drivers(kept_rows[:, : spec.dimension], kept["l1"], spec.names)
+    form, note, sensitivity = _first_order(ev, spec, fixed) if reliability else (None, None, [])
     return RobustnessResult(
         model=ev.model.name,
         samples=done,
@@ -719,7 +761,21 @@ def run_robustness(
         ranking=ranking,
         kept=kept,
         hard_samples=hard_samples,
+        reliability=form,
+        reliability_note=note,
+        sensitivity=sensitivity,
     )
+
+
+def _first_order(
+    ev: Any, spec: UncertaintySpec, fixed: Mapping[str, float]
+) -> tuple[ReliabilityResult | None, str | None, list[Sensitivity]]:
+    """FORM index and local sensitivities, or the reason there are none."""
+    try:
+        form = reliability_index(ev, spec, fixed)
+    except StudyError as exc:
+        return None, str(exc), []
+    return form, None, local_sensitivities(ev, spec, fixed)
 
 
 def _quantiles(

@@ -63,7 +63,7 @@ def _l1(k, s):
 
 def test_value_and_gradient_in_one_batch_call(pinch):
     ev = Counting(pinch)
-    space = DesignSpace(ev, ["k", "s"])
+    space = DesignSpace(ev, ["k", "s"], gradients="differences")
     l1 = space.output("l1")
     omega = space.output("omega")
     x = np.array([2.0, -0.7])
@@ -77,6 +77,33 @@ def test_value_and_gradient_in_one_batch_call(pinch):
     assert grad == pytest.approx(exact, rel=1e-6)
     assert omega_grad == pytest.approx([0.5 / math.sqrt(2.0), 0.0], abs=1e-7)
     assert space.output("l1", maximize=True)(x) == -l1(x)
+
+
+class CountingExact(Counting):
+    """Counting, for calls that ask for exact derivatives."""
+
+    def batch(self, inputs, threads=None, derivatives=False):
+        self.sizes.append(max(np.size(v) for v in inputs.values()))
+        return self.ev.batch(inputs, threads=threads, derivatives=derivatives)
+
+
+def test_exact_gradients_from_one_evaluation(pinch):
+    # Reference derivatives: sympy.diff of the closed form l1 = 2 s / sqrt(k), omega = sqrt(k).
+    ev = CountingExact(pinch)
+    space = DesignSpace(ev, ["k", "s"])
+    x = np.array([2.0, -0.7])
+    l1, omega, period = space.output("l1"), space.output("omega"), space.output("period")
+    value, grad = l1.value_and_gradient(x)
+    assert value == pytest.approx(_l1(2.0, -0.7), rel=1e-12)
+    exact = [float(sympy.diff(L1_EXACT, v).subs({K: 2.0, S: -0.7})) for v in (K, S)]
+    assert grad == pytest.approx(exact, rel=1e-12)
+    assert omega.jac(x) == pytest.approx([0.5 / math.sqrt(2.0), 0.0], abs=1e-14)
+    # period = 2 pi / sqrt(k): d/dk = -pi k^(-3/2)
+    assert period.jac(x)[0] == pytest.approx(-math.pi * 2.0**-1.5, rel=1e-12)
+    assert ev.sizes == [1]  # one sample served value and gradients of every output
+    # Outputs without exact derivatives still use the stencil.
+    space.output("transversality").jac(x)
+    assert ev.sizes == [1, 5]
 
 
 def test_slsqp_finds_the_constrained_optimum(pinch):
@@ -150,7 +177,7 @@ def test_inf_policy_is_for_derivative_free_methods(pinch):
 def test_one_sided_difference_next_to_a_failure(pinch):
     # step 0.5 at k = 0.3: k - h = -0.2 is a neutral saddle, k + h = 0.8 is fine, so the
     # k-derivative is the forward difference of the exact values.
-    space = DesignSpace(pinch, ["k", "s"], step=0.5)
+    space = DesignSpace(pinch, ["k", "s"], step=0.5, gradients="differences")
     grad = space.output("l1").jac([0.3, -1.0])
     forward = (_l1(0.8, -1.0) - _l1(0.3, -1.0)) / 0.5
     assert grad[0] == pytest.approx(forward, rel=1e-9)
@@ -293,3 +320,25 @@ def test_soft_onset_example_goes_from_hard_to_soft(capsys):
     assert before["p_hard"] > 0.9 and after["p_hard"] < 0.05
     assert after["p_hard"] < out["nominal_design"]["p_hard"]
     assert "Before -> after" in capsys.readouterr().out
+
+
+@pytest.mark.parametrize("smoothing", [None, 0.2])
+def test_robust_exact_gradient_matches_differences(pinch, smoothing):
+    # Source: common practice, no source: the exact gradient (per-sample derivatives through
+    # the order statistics or the logistic ramp) against central differences of the same
+    # common-random-number statistic.
+    table = {"s": {"distribution": "normal", "sd": 0.3}}
+    grads = []
+    for mode in ("exact", "differences"):
+        space = DesignSpace(pinch, ["k", "s"], gradients=mode, step=1e-6)
+        stat = RobustStatistic(
+            space,
+            statistic="quantile" if smoothing is None else "probability",
+            level=0.8,
+            samples=3000,
+            seed=4,
+            uncertainty=table,
+            smoothing=smoothing,
+        )
+        grads.append(stat.jac([1.5, -0.4]))
+    assert grads[0] == pytest.approx(grads[1], rel=1e-5)
