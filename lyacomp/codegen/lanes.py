@@ -13,7 +13,7 @@ import re
 from dataclasses import dataclass
 
 from ..errors import CodegenError
-from .lower import Block, Statement
+from .lower import Accumulation, Block, Statement
 
 _TOKEN = re.compile(
     r"(?P<num>\d+\.?\d*(?:[eE][+-]?\d+)?)|(?P<name>[A-Za-z_]\w*)|(?P<other>.)", re.S
@@ -30,6 +30,9 @@ class LaneCode:
 
     f_jac: Block
     linear: Block
+    curvature: Block
+    b_form: tuple[str, ...]
+    c_form: tuple[str, ...]
     functions: tuple[tuple[str, int], ...]
 
 
@@ -85,9 +88,38 @@ def _lane_block(block: Block, prefix: str, used: dict[str, int]) -> Block:
     return Block(tuple(map(one, block.temporaries)), tuple(map(one, block.outputs)))
 
 
-def lane_code(f_jac: Block, linear: Block, prefix: str) -> LaneCode:
-    """Lane versions of the two model functions the lane Newton calls."""
+def _lane_form(accumulations: tuple[Accumulation, ...], prefix: str) -> tuple[str, ...]:
+    """``out[i] += d[k] * (u[j] * v[l] + ...)`` as complex lane calls, in the same order
+    of operations (products and sums left to right)."""
+    lines = []
+    for a in accumulations:
+        total = ""
+        for term in a.terms:
+            factors = [f.strip() for f in term.split(" * ")]
+            product = factors[0]
+            for f in factors[1:]:
+                product = f"{prefix}_cmul({product}, {f})"
+            total = product if not total else f"{prefix}_cadd({total}, {product})"
+        factor = a.factor if not _is_constant(a.factor) else f"{prefix}_splat({a.factor})"
+        lines.append(f"{a.target} = {prefix}_cadd({a.target}, {prefix}_cscale({factor}, {total}));")
+    return tuple(lines)
+
+
+def lane_code(
+    f_jac: Block,
+    linear: Block,
+    curvature: Block,
+    b_form: tuple[Accumulation, ...],
+    c_form: tuple[Accumulation, ...],
+    prefix: str,
+) -> LaneCode:
+    """Lane versions of the model functions and multilinear forms of the lane stage."""
     used: dict[str, int] = {}
-    lanes_f_jac = _lane_block(f_jac, prefix, used)
-    lanes_linear = _lane_block(linear, prefix, used)
-    return LaneCode(lanes_f_jac, lanes_linear, tuple(sorted(used.items())))
+    return LaneCode(
+        _lane_block(f_jac, prefix, used),
+        _lane_block(linear, prefix, used),
+        _lane_block(curvature, prefix, used),
+        _lane_form(b_form, prefix),
+        _lane_form(c_form, prefix),
+        tuple(sorted(used.items())),
+    )
