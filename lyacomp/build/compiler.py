@@ -234,7 +234,8 @@ def _remembered_vector_math(
     if sys.platform != "linux":
         return False  # libmvec is glibc's
     digest = hashlib.sha256("\n".join(flags).encode()).hexdigest()[:16]
-    record = _probe_record(command, version, config).with_suffix(f".vecmath-{digest}.json")
+    # Not *.json: the flag probe's record stays the one JSON file per toolchain.
+    record = _probe_record(command, version, config).with_suffix(f".vecmath-{digest}")
     try:
         found = json.loads(record.read_text(encoding="utf-8")).get("vector_math")
     except (OSError, UnicodeDecodeError, ValueError, AttributeError):
