@@ -8,6 +8,9 @@
 - LYACOMP_OPENMP: 1 uses OpenMP threads in batch calls when supported, 0 not (default 1).
 - LYACOMP_KEEP_BUILD: 1 keeps the temporary build directory for debugging (default 0).
 - LYACOMP_LOCK_TIMEOUT: seconds to wait for another process's build (default 600).
+- LYACOMP_LANES: samples per SIMD lane block, 1, 2, 4 or 8 (default: from the target).
+- LYACOMP_VECTOR_MATH: 1 uses glibc's vector math in lane blocks when a build probe
+  finds it agreeing with libm, 0 calls libm lane by lane (default 1).
 
 Every setting that changes the generated binary is part of the cache key. A pickled
 evaluator is rebuilt with the receiver's cache directory, compiler, lock timeout and
@@ -67,6 +70,15 @@ class BuildConfig:
     """Keep the temporary build directory (for debugging the generated code)."""
     lock_timeout: float = 600.0
     """Seconds to wait for another process building the same model."""
+    lanes: int = 0
+    """Samples per lane block of the SIMD stage; 0 picks it from the target (8 AVX-512,
+    4 AVX2, 2 SSE2/NEON, 1 otherwise); 1 or 2 force a narrower one (for testing)."""
+    vector_math: bool = True
+    """Let lane blocks call glibc's vector math when a build probe finds it."""
+
+    def __post_init__(self) -> None:
+        if self.lanes not in (0, 1, 2, 4, 8):
+            raise LyacompError(f"lanes={self.lanes!r}: use 0 (from the target), 1, 2, 4 or 8")
 
     @classmethod
     def from_environment(cls) -> BuildConfig:
@@ -75,6 +87,9 @@ class BuildConfig:
             timeout = float(os.environ.get("LYACOMP_LOCK_TIMEOUT", "600"))
         except ValueError:
             raise LyacompError("LYACOMP_LOCK_TIMEOUT must be a number of seconds") from None
+        lanes = os.environ.get("LYACOMP_LANES", "").strip() or "0"
+        if lanes not in ("0", "1", "2", "4", "8"):
+            raise LyacompError(f"environment variable LYACOMP_LANES={lanes!r}: use 1, 2, 4 or 8")
         return cls(
             cache_dir=default_cache_dir(),
             compiler=os.environ.get("LYACOMP_CC") or os.environ.get("CC") or None,
@@ -83,4 +98,6 @@ class BuildConfig:
             openmp=_flag("LYACOMP_OPENMP", True),
             keep_build=_flag("LYACOMP_KEEP_BUILD", False),
             lock_timeout=timeout,
+            lanes=int(lanes),
+            vector_math=_flag("LYACOMP_VECTOR_MATH", True),
         )

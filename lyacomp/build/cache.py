@@ -264,7 +264,10 @@ def clear_cache(cache_dir: Path) -> int:
                 _remove(entry)
                 removed += 1
         _rmdir_if_empty(shard)
-    patterns = {"locks": r"[0-9a-f]{64}\.lock", "toolchains": r"[0-9a-f]{32}(\.json|\.\d+\.tmp)"}
+    patterns = {
+        "locks": r"[0-9a-f]{64}\.lock",
+        "toolchains": r"[0-9a-f]{32}(\.json|\.vecmath-[0-9a-f]{16}|\.\d+\.tmp)",
+    }
     for folder, pattern in patterns.items():
         for item in _children(cache_dir / folder):
             if re.fullmatch(pattern, item.name) and item.is_file():

@@ -209,6 +209,50 @@ def _remembered_probe(
     return flags, openmp, False
 
 
+def _probe_vector_math(command: tuple[str, ...], flags: list[str]) -> bool:
+    """Whether glibc's vector math links for the lane width of ``flags`` and agrees with libm."""
+    from ..codegen.render import vector_math_probe_source  # codegen imports build's users
+
+    with tempfile.TemporaryDirectory(prefix="lyacomp-probe-") as tmp:
+        src, exe = Path(tmp) / "vecmath.c", Path(tmp) / "vecmath"
+        src.write_text(vector_math_probe_source())
+        try:
+            built = _run(
+                [*command, *flags, "-DLYACOMP_MVEC", str(src), "-o", str(exe), "-lm", "-lmvec"],
+                cwd=tmp,
+                timeout=60,
+            )
+            return built.returncode == 0 and _run([str(exe)], cwd=tmp, timeout=30).returncode == 0
+        except (OSError, subprocess.TimeoutExpired):
+            return False
+
+
+def _remembered_vector_math(
+    command: tuple[str, ...], version: str, flags: list[str], config: BuildConfig
+) -> bool:
+    """The vector math probe, remembered next to the flag probe (it depends on the flags)."""
+    if sys.platform != "linux":
+        return False  # libmvec is glibc's
+    digest = hashlib.sha256("\n".join(flags).encode()).hexdigest()[:16]
+    # Not *.json: the flag probe's record stays the one JSON file per toolchain.
+    record = _probe_record(command, version, config).with_suffix(f".vecmath-{digest}")
+    try:
+        found = json.loads(record.read_text(encoding="utf-8")).get("vector_math")
+    except (OSError, UnicodeDecodeError, ValueError, AttributeError):
+        found = None
+    if isinstance(found, bool):
+        return found
+    works = _probe_vector_math(command, flags)
+    try:
+        record.parent.mkdir(parents=True, exist_ok=True)
+        tmp = record.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(json.dumps({"vector_math": works}), encoding="utf-8")
+        os.replace(tmp, record)
+    except OSError:
+        pass  # an unwritable cache only costs the probe next time
+    return works
+
+
 def forget_probe(tc: Toolchain, config: BuildConfig) -> None:
     """Drop the remembered probe of ``tc`` so that the next :func:`toolchain` probes again."""
     try:
@@ -231,8 +275,16 @@ def toolchain(config: BuildConfig) -> Toolchain:
     text = (out.stdout or out.stderr).strip()
     version = text.splitlines()[0] if text else "unknown"
     compile_flags, openmp, remembered = _remembered_probe(command, version, config)
+    if config.lanes:
+        compile_flags.append(f"-DLYACOMP_LANES={config.lanes}")
+    vector_math = config.vector_math and _remembered_vector_math(
+        command, version, compile_flags, config
+    )
+    if vector_math:
+        compile_flags.append("-DLYACOMP_MVEC")
     compile_flags.extend(config.extra_flags)
-    link_flags = [*_shared_flags(), "-lm"] + (["-fopenmp"] if openmp else [])
+    link_flags = [*_shared_flags(), "-lm"] + (["-lmvec"] if vector_math else [])
+    link_flags += ["-fopenmp"] if openmp else []
     return Toolchain(command, version, tuple(compile_flags), tuple(link_flags), openmp, remembered)
 
 

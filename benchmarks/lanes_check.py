@@ -1,0 +1,83 @@
+"""The lane path against the scalar path on many samples of M2 and M3 (issue 11).
+
+``python benchmarks/lanes_check.py [--count 1000000]`` draws the benchmark's samples (every
+parameter but the bifurcation parameter within +-5 %), evaluates them once with the batch
+call (warm start: the lane path) and once with one scalar call per sample (the scalar
+path), and prints per model: samples whose status differs, the largest relative
+difference of every output (l1 also against the size of its cancelling terms), and the CPU
+and wall time of the batch. Exits non-zero when a status differs or a value differs by
+more than 1e-14.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from bench_models import FILES, MODEL_DIR, batch_inputs, draw_samples  # noqa: E402
+
+import lyacomp  # noqa: E402
+
+FIELDS = ("l1", "omega", "period", "critical_value", "transversality")
+
+
+def check(label: str, count: int) -> bool:
+    model = lyacomp.load_model(MODEL_DIR / FILES[label])
+    ev = lyacomp.compile(model)
+    inputs = batch_inputs(model, draw_samples(model, count, seed=11))
+    wall, cpu = time.perf_counter(), time.process_time()
+    batch = ev.batch(inputs, threads=1)
+    wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
+    names = list(inputs)
+    columns = [inputs[k] for k in names]
+    worst = dict.fromkeys((*FIELDS, "l1 / l1_scale", "equilibrium", "amplitude"), 0.0)
+    status_diff = 0
+    for i in range(count):
+        one = ev(dict(zip(names, (float(c[i]) for c in columns))))
+        if int(one.status_code) != int(batch.status[i]):
+            status_diff += 1
+            continue
+        if not one.ok:
+            continue
+        for f in FIELDS:
+            a, b = getattr(one, f), float(getattr(batch, f)[i])
+            worst[f] = max(worst[f], abs(a - b) / max(abs(a), 1e-300))
+        worst["l1 / l1_scale"] = max(
+            worst["l1 / l1_scale"], abs(one.l1 - float(batch.l1[i])) / one._raw.l1_scale
+        )
+        for f in ("equilibrium", "amplitude"):
+            a = np.array(list(getattr(one, f).values()))
+            worst[f] = max(
+                worst[f], float(np.max(np.abs(a - getattr(batch, f)[i]))) / np.max(np.abs(a))
+            )
+    print(
+        f"{label}: {count} samples, {int(batch.ok.sum())} ok; status differs on {status_diff}; "
+        f"batch (1 thread) {1e9 * wall / count:.0f} ns wall, "
+        f"{1e9 * cpu / count:.0f} ns CPU per sample"
+    )
+    for f, v in worst.items():
+        print(f"  max relative difference {f}: {v:.2e}")
+    return (
+        status_diff == 0
+        and worst["l1 / l1_scale"] <= 1e-14
+        and all(v <= 1e-14 for f, v in worst.items() if f != "l1")
+    )
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--count", type=int, default=1_000_000)
+    args = parser.parse_args()
+    ok = [check(label, args.count) for label in ("M2", "M3")]
+    return 0 if all(ok) else 1
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
