@@ -112,6 +112,12 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
     return {**mapping, **keywords}
 
 
+_NOT_FOR_DELAYS = (
+    "{what} is not available for models with delays yet (only for ODE models); the delay"
+    " kernel gives l1, the critical value, omega, the equilibrium and the root count"
+)
+
+
 def _derivatives_need_guess_search(method: str, guess: Any = None) -> None:
     """Exact derivatives come with the guess-based search from the nominal solution."""
     if method == "operating" or guess is not None:
@@ -209,9 +215,10 @@ class Evaluator:
         self._local = threading.local()
         self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
-        self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
-        self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient")
-        self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point")
+        # absent from delay kernels (not built for delay equations yet): None
+        self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from", None)
+        self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient", None)
+        self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point", None)
         self._derivative_twin: Evaluator | None = None
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
@@ -365,7 +372,7 @@ class Evaluator:
             self._evaluate(p, self._guess, start, self._options, res)
             guess = row[self._index[self.bifurcation]] if self.bifurcation else None
             result = HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
-        if l2 or res.criticality == Criticality.DEGENERATE:
+        if l2 or (res.criticality == Criticality.DEGENERATE and self._l2_kernel is not None):
             self._second_coefficient(p, res, result)
         return result
 
@@ -383,6 +390,8 @@ class Evaluator:
 
     def _second_coefficient(self, p: Any, res: Any, result: HopfResult) -> None:
         """Compute l2 at the Hopf point of ``res`` and attach it to ``result``."""
+        if self._l2_kernel is None:
+            raise EvaluationError(_NOT_FOR_DELAYS.format(what="the second Lyapunov coefficient"))
         value = self.ffi.new("double *")
         gain = self.ffi.new("double[]", len(self.states))
         self._l2_kernel(p, res, value, gain)
@@ -397,6 +406,8 @@ class Evaluator:
         from ``name``'s value (nominal, or given here), with l2 there.
 
         Raises DegeneratePointError when it is not found."""
+        if self._degenerate_kernel is None:
+            raise EvaluationError(_NOT_FOR_DELAYS.format(what="the degenerate point"))
         values = _names(params, values, "parameters")
         row = self._nominal.copy()
         try:
@@ -630,6 +641,8 @@ class Evaluator:
                     count, shape, c_params, c_strides, bif_guess, op_array, threads, c_out
                 )
             elif guesses:
+                if self._evaluate_batch_from is None:
+                    raise EvaluationError(_NOT_FOR_DELAYS.format(what="per-sample guesses"))
                 state_columns, state_strides = self._guess_columns(guesses, shape)
                 c_guesses = ffi.new(
                     "double *[]",

@@ -40,6 +40,7 @@ class KnownOnset:
             criticality="supercritical" if l1 < 0 else "subcritical",
             cycle_side=side,
             amplitude={"x": 2 * math.sqrt(abs(d / (omega * l1)))},  # |q| = 1, one state
+            period=2 * math.pi / omega,
             **self.onset,
         )
 
