@@ -135,7 +135,7 @@ class ReliabilityResult:
             f" after {self.iterations} iteration(s); P(hard) ~ Phi(-beta) ="
             f" {self.probability_hard:.6g}",
             f"  most probable hard-onset point: {point}",
-            f"  caution: {CAUTION_FORM}",
+            f"  note: {CAUTION_FORM}",
         ]
 
 
