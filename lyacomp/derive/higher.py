@@ -10,9 +10,7 @@ from dataclasses import dataclass
 
 import sympy as sp
 
-from ..errors import DerivationError
-from ..model.expr_parser import quote
-from .derivatives import Derivatives
+from .derivatives import Derivatives, _diff
 
 Index5 = tuple[int, int, int, int, int]
 Index6 = tuple[int, int, int, int, int, int]
@@ -28,15 +26,6 @@ class HigherDerivatives:
     fifth: dict[Index6, sp.Expr]
 
 
-def _diff(expr: sp.Expr, var: sp.Symbol, equation: int) -> sp.Expr:
-    try:
-        return sp.diff(expr, var)
-    except Exception as exc:  # sympy raises many types on exotic input
-        raise DerivationError(
-            f"cannot differentiate equation {equation} with respect to {var}: {quote(str(exc))}"
-        ) from exc
-
-
 def derive_higher(der: Derivatives) -> HigherDerivatives:
     """Differentiate each stored third derivative once and twice more."""
     xs = der.model.states
@@ -47,14 +36,14 @@ def derive_higher(der: Derivatives) -> HigherDerivatives:
         for m in range(last, n):
             if xs[m] not in d3.free_symbols:
                 continue
-            d4 = _diff(d3, xs[m], i)
+            d4 = _diff(d3, xs[m], f"equation {i}")
             if d4 == 0:
                 continue
             fourth[(i, j, k, last, m)] = d4
             for r in range(m, n):
                 if xs[r] not in d4.free_symbols:
                     continue
-                d5 = _diff(d4, xs[r], i)
+                d5 = _diff(d4, xs[r], f"equation {i}")
                 if d5 != 0:
                     fifth[(i, j, k, last, m, r)] = d5
     return HigherDerivatives(der, fourth, fifth)
