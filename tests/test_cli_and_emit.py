@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 import shutil
 import subprocess
 import sys
@@ -84,6 +85,7 @@ def test_emitted_c_compiles_cleanly_and_agrees(examples_dir, tmp_path):
         int main(void) {{
             double p[FEEDER_N_PARAMS] = {{400, 0.2, 2e-3, 1e-3, 0.1, 1e-3, 0.5e-3, 0.002, 4000}};
             feeder_result r;
+            p[FEEDER_P_P] = 4000;  /* the index names of the header address params[] */
             feeder_evaluate(p, NULL, NULL, NULL, &r);
             printf("%d %.17g %.17g\\n", r.status, r.l1, r.critical_value);
             return r.status != FEEDER_OK;
@@ -125,6 +127,32 @@ def test_model_names_cannot_break_out_of_c_comments(tmp_path):
         bifurcation="mu",
     )
     assert lyacomp.compile(model)().l1 == pytest.approx(2 * (-6 / 16))
+
+
+def _comments_and_directives(c_text: str) -> str:
+    comments = re.findall(r"/\*.*?\*/|//[^\n]*", c_text, flags=re.S)
+    directives = re.findall(r"^[ \t]*#[^\n]*", c_text, flags=re.M)
+    strings = re.findall(r'"(?:[^"\\\n]|\\.)*"', re.sub(r"/\*.*?\*/", "", c_text, flags=re.S))
+    return "\n".join(comments + directives + strings)
+
+
+def test_user_names_reach_the_c_only_as_identifiers(tmp_path):
+    # House rule (no source): model text reaches generated C only as whitelisted
+    # identifiers, never in a comment, a string or a preprocessor line.
+    model_path = tmp_path / "names.toml"
+    model_path.write_text(
+        'name = "names"\n[states]\nzorblat = 0.0\nquxwin = 0.0\n[parameters]\nfnordmu = 0.0\n'
+        '[equations]\nzorblat = "fnordmu*zorblat - quxwin - zorblat**3"\n'
+        'quxwin = "zorblat + fnordmu*quxwin"\n[bifurcation]\nparameter = "fnordmu"\n'
+    )
+    assert main(["emit", str(model_path), "-o", str(tmp_path / "out"), "--prefix", "nm"]) == 0
+    emitted = [f for f in (tmp_path / "out").iterdir() if f.suffix in (".c", ".h")]
+    texts = {f.name: f.read_text() for f in emitted}
+    assert texts and any("NM_X_zorblat" in t for t in texts.values())
+    for name, text in texts.items():
+        outside_code = _comments_and_directives(text)
+        for word in ("zorblat", "quxwin", "fnordmu"):
+            assert word not in outside_code, (name, word)
 
 
 def _variant(n: int, mode: str) -> lyacomp.Model:
