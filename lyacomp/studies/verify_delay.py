@@ -33,18 +33,19 @@ from lyacomp.studies.verify import (
     ESCAPE_RADII,
     GREW_FACTOR,
     RETURN_FRACTION,
-    SAMPLES_PER_PERIOD,
     SUBCRITICAL_INNER,
     SUBCRITICAL_OUTER,
-    SUPERCRITICAL_START,
     WINDOW_PERIODS,
-    CycleMeasurement,
     NumericModel,
-    SimulationCheck,
+    OffsetPlan,
+    OffsetRun,
     SimulationRun,
     _samples,
     find_equilibrium,
-    measure_cycle,
+    measure_windows,
+    run_integration,
+    settled_outcome,
+    start_label,
 )
 
 #: Tolerances of the delay runs: relative, and absolute as a fraction of the cycle size.
@@ -176,8 +177,8 @@ def radius_estimator(q: np.ndarray, omega: float) -> Callable[[np.ndarray, np.nd
 
 
 def _integrate(ndm, history, t_end: float, scale: float, stop=None) -> DelaySolution:
-    try:
-        sol = integrate_delay(
+    return run_integration(
+        lambda: integrate_delay(
             ndm.rhs,
             ndm.delays,
             history,
@@ -185,41 +186,32 @@ def _integrate(ndm, history, t_end: float, scale: float, stop=None) -> DelaySolu
             rtol=RTOL,
             atol=ATOL_FRACTION * scale,
             stop=stop,
-        )
-    except (ArithmeticError, ValueError) as exc:
-        raise StudyError(
-            f"the simulation left the model's domain ({exc}); try a smaller offset or growth"
-        ) from None
-    if sol.status == -1:
-        raise StudyError(
-            f"the integration failed ({sol.message}); the trajectory may have left the "
-            "model's domain: try a smaller offset or growth"
-        )
-    return sol
+        ),
+        t_end,
+    )
 
 
-def run_delay_check(
-    model: Any,
-    check: SimulationCheck,
-    values: Mapping[str, float],
-    res: Any,
-    delta: float,
-    settle: float,
-) -> SimulationCheck:
-    """Fill ``check`` (set up by :func:`lyacomp.studies.verify.check_by_simulation`) with
-    the delay-model runs at the parameter ``values`` (``delta`` past onset)."""
-    ndm = numeric_delay_model(model, values)
+def simulate_delay_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
+    """The delay-model runs at one offset (``plan``, set up by
+    :func:`lyacomp.studies.verify.check_by_simulation`): the settled cycle (supercritical)
+    or the two runs that bracket the unstable cycle (subcritical)."""
+    ndm = numeric_delay_model(model, plan.values)
     guess = np.array([res.equilibrium[s] for s in ndm.state_names], float)
     eq = find_equilibrium(ndm.at_equilibrium(), guess)
     d, omega, l1 = res.transversality, res.omega, res.l1
     lam, q, _ = critical_root(ndm, eq, omega)
-    w = math.sqrt(abs(d * delta / (omega * l1)))
+    w = math.sqrt(abs(d * plan.delta / (omega * l1)))
     theta = np.linspace(0.0, 2 * math.pi, 400)
-    check.equilibrium = eq
-    check.predicted_cycle = eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q))
+    leg = OffsetRun(
+        value=plan.value,
+        offset=plan.delta,
+        equilibrium=eq,
+        predicted_amplitude=plan.predicted,
+        predicted_cycle=eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q)),
+    )
     radius = 2 * w
-    period = check.predicted_period
-    reference = int(np.argmax(check.predicted_amplitude))
+    period, settle = plan.period, plan.settle
+    reference = int(np.argmax(plan.predicted))
     estimate = radius_estimator(q, omega)
 
     def history(fraction: float):
@@ -238,26 +230,18 @@ def run_delay_check(
 
         return condition
 
-    if res.criticality == "supercritical":
-        window = WINDOW_PERIODS * period
-        t_end = settle + 2 * window
-        sol = _integrate(ndm, history(SUPERCRITICAL_START), t_end, radius, stop(False))
-        meas = None
-        if sol.status == 0:
-            k = WINDOW_PERIODS * SAMPLES_PER_PERIOD
-            ta = np.linspace(settle, settle + window, k)
-            tb = np.linspace(settle + window, t_end, k)
-            amp_a, _ = measure_cycle(ta, sol.sol(ta).T, reference)
-            amp_b, per = measure_cycle(tb, sol.sol(tb).T, reference)
-            drift = float(np.max(np.abs(amp_b - amp_a)) / max(float(np.max(amp_b)), 1e-300))
-            meas = CycleMeasurement(amp_b, per, drift)
-        outcome = "escaped" if meas is None else ("settled" if meas.settled else "drifting")
+    if plan.criticality == "supercritical":
+        t_end = settle + 2 * WINDOW_PERIODS * period
+        sol = _integrate(ndm, history(plan.start), t_end, radius, stop(False))
+        meas = measure_windows(sol, settle, period, reference) if sol.status == 0 else None
         t, x = _samples(sol, float(sol.t[-1]), period)
-        check.runs.append(
-            SimulationRun("inside", SUPERCRITICAL_START, outcome, float(sol.t[-1]), t, x)
+        leg.runs.append(
+            SimulationRun(
+                start_label(plan.start), plan.start, settled_outcome(meas), float(sol.t[-1]), t, x
+            )
         )
-        check.measured = meas
-        return check
+        leg.measured = meas
+        return leg
 
     for label, fraction in (("inside", SUBCRITICAL_INNER), ("outside", SUBCRITICAL_OUTER)):
         sol = _integrate(ndm, history(fraction), 3 * settle, radius, stop(True))
@@ -275,5 +259,5 @@ def run_delay_check(
             z = np.array([estimate(x - eq, r) for x, r in zip(xs, rates, strict=True)]) / w
             outcome = "grew" if z.mean() > GREW_FACTOR * fraction else "stayed"
         t, x = _samples(sol, float(sol.t[-1]), period)
-        check.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
-    return check
+        leg.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
+    return leg
