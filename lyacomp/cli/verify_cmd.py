@@ -10,7 +10,13 @@ from ..errors import StudyError
 from ..pipeline import compile_model
 from ..runtime import CAUTION
 from ..studies.demo import jsonable
-from ..studies.verify import DEFAULT_GROWTH, OUTCOME_WORDS, check_by_simulation
+from ..studies.verify import (
+    DEFAULT_GROWTH,
+    OUTCOME_WORDS,
+    check_by_simulation,
+    compared_numbers,
+)
+from ..studies.verify_onset import FOLD_NOTE_RANGE
 from .common import add_model_args, model_from_args, overrides_from_args
 
 EXAMPLE = """examples:
@@ -89,23 +95,25 @@ def run(args: argparse.Namespace) -> int:
 def report(check) -> str:
     """Predictions beside measurements, as text."""
     mu = check.bifurcation
-    lines = [
+    head = (
         f"{check.model}: {check.criticality} onset at {mu}_c = {check.critical_value:.10g}; "
         f"simulated at {mu} = {check.value:.10g} (offset {check.offset:+.4g})"
-    ]
+    )
+    if check.closer is not None:
+        head += f" and {mu} = {check.closer.value:.10g} (offset {check.closer.offset:+.4g})"
+    lines = [head]
     if check.measured is not None:
-        lines.append(f"  {'state':<12}{'predicted':>14}{'measured':>14}{'error':>10}")
-        for j, name in enumerate(check.state_names):
-            lines.append(
-                f"  {name:<12}{check.predicted_amplitude[j]:>14.6g}"
-                f"{check.measured.amplitude[j]:>14.6g}{100 * check.amplitude_error[j]:>9.2f}%"
-            )
-        lines.append(
-            f"  {'period':<12}{check.predicted_period:>14.6g}{check.measured.period:>14.6g}"
-            f"{100 * check.period_error:>9.2f}%"
-        )
+        lines += _raw_table(check)
         if not check.measured.settled:
             lines.append(f"  the amplitude still drifted by {check.measured.drift:.2g} (relative)")
+        closer = check.closer.measured if check.closer is not None else None
+        if closer is not None and not closer.settled:
+            lines.append(
+                f"  at the closer offset the amplitude still drifted by {closer.drift:.2g} "
+                "(relative)"
+            )
+        if check.onset is not None:
+            lines += _onset_table(check)
     else:
         for run in check.runs:
             lines.append(
@@ -121,3 +129,60 @@ def report(check) -> str:
             "and the offset where they fail bounds their useful range"
         )
     return "\n".join(lines)
+
+
+def _raw_table(check) -> list[str]:
+    """Predicted and measured amplitudes and periods at each simulated offset."""
+    legs = [(check.offset, check.predicted_amplitude, check.measured)]
+    if check.closer is not None and check.closer.measured is not None:
+        legs.append((check.closer.offset, check.closer.predicted_amplitude, check.closer.measured))
+    lines = [
+        f"  {'amplitude':<12}"
+        + "".join(f"{f'at offset {offset:+.4g}':>38}" for offset, _, _ in legs),
+        f"  {'state':<12}" + f"{'predicted':>14}{'measured':>14}{'error':>10}" * len(legs),
+    ]
+    for j, name in enumerate(check.state_names):
+        cells = [_cells(pred[j], meas.amplitude[j]) for _, pred, meas in legs]
+        lines.append(f"  {name:<12}" + "".join(cells))
+    cells = [_cells(check.predicted_period, meas.period) for _, _, meas in legs]
+    lines.append(f"  {'period':<12}" + "".join(cells))
+    return lines
+
+
+def _cells(predicted: float, measured: float) -> str:
+    return f"{predicted:>14.6g}{measured:>14.6g}{100 * (measured / predicted - 1):>9.2f}%"
+
+
+def _at(offset: float) -> str:
+    return f"{f'K at {offset:+.3g}':>16}"
+
+
+def _onset_table(check) -> list[str]:
+    """The extrapolated amplitude coefficients and period beside the compiled ones."""
+    fit = check.onset
+    lines = [
+        "  extrapolated to onset (offset / amplitude^2 linear in amplitude^2 through both runs):",
+        f"  {'state':<12}{'predicted K':>16}{_at(check.offset)}{_at(check.closer.offset)}"
+        f"{'K at onset':>16}{'error':>10}",
+    ]
+    error = check.onset_amplitude_error
+    for j, name in enumerate(check.state_names):
+        lines.append(
+            f"  {name:<12}{check.predicted_coefficient[j]:>16.6g}{fit.raw[0][j]:>16.6g}"
+            f"{fit.raw[1][j]:>16.6g}{fit.coefficient[j]:>16.6g}{100 * error[j]:>9.2f}%"
+        )
+    lines.append(
+        f"  {'period':<12}{check.predicted_period:>16.6g}{check.measured.period:>16.6g}"
+        f"{check.closer.measured.period:>16.6g}{fit.period:>16.6g}"
+        f"{100 * check.onset_period_error:>9.2f}%"
+    )
+    lines.append(f"  compared: {compared_numbers(check)}")
+    fold = fit.fold_offset
+    if fold is not None and fold < FOLD_NOTE_RANGE * abs(check.offset):
+        lines.append(
+            f"  note: the fitted slope would put a fold of cycles near offset {fold:.3g} "
+            "(an estimate from the truncated normal form; the cycle may jump there)"
+        )
+    if not fit.valid:
+        lines.append(f"  the extrapolation is not valid: {fit.reason}")
+    return lines

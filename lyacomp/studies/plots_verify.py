@@ -1,29 +1,91 @@
-"""Picture of a simulation check: time series per state and a phase portrait."""
+"""Picture of a simulation check: time series per state and a phase portrait, for every
+simulated offset."""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-from lyacomp.studies.verify import OUTCOME_WORDS, SimulationCheck
+from lyacomp.studies.verify import OUTCOME_WORDS, SimulationCheck, SimulationRun
 
 #: Our own colour choices: blue and orange stay distinct under the common colour-vision
-#: deficiencies; the prediction is drawn in black dashes so it never relies on hue.
-RUN_COLOURS = {"inside": "#1f5fa8", "outside": "#d9730d"}
+#: deficiencies; the prediction is drawn in black (dashed at the farther offset, dotted at
+#: the closer one) so it never relies on hue.
+FAR_COLOUR = "#1f5fa8"
+NEAR_COLOUR = "#d9730d"
+RUN_COLOURS = {"inside": FAR_COLOUR, "outside": NEAR_COLOUR}
 PREDICTION_COLOUR = "#000000"
 MAX_STATE_ROWS = 4
 
 _RUN_WORDS = {
-    ("supercritical", "inside"): "simulation (started inside the predicted cycle)",
     ("subcritical", "inside"): "started just inside the predicted unstable cycle",
     ("subcritical", "outside"): "started just outside the predicted unstable cycle",
 }
 
 
+@dataclass(frozen=True)
+class _Trace:
+    """One run as drawn: its samples, colour, legend text and the offset's prediction."""
+
+    run: SimulationRun
+    colour: str
+    words: str
+    equilibrium: np.ndarray
+    predicted_amplitude: np.ndarray
+    predicted_cycle: np.ndarray
+    style: str
+
+
+def _traces(check: SimulationCheck) -> list[_Trace]:
+    """Every run of the check; the closer offset's run (supercritical) after the farther."""
+    if check.criticality == "subcritical":
+        return [
+            _Trace(
+                run,
+                RUN_COLOURS[run.label],
+                _RUN_WORDS[("subcritical", run.label)],
+                check.equilibrium,
+                check.predicted_amplitude,
+                check.predicted_cycle,
+                "--",
+            )
+            for run in check.runs
+        ]
+    traces = [
+        _Trace(
+            run,
+            FAR_COLOUR,
+            f"simulation at offset {check.offset:+.3g}",
+            check.equilibrium,
+            check.predicted_amplitude,
+            check.predicted_cycle,
+            "--",
+        )
+        for run in check.runs
+    ]
+    if check.closer is not None:
+        near = check.closer
+        traces += [
+            _Trace(
+                run,
+                NEAR_COLOUR,
+                f"simulation at offset {near.offset:+.3g} (closer to onset)",
+                near.equilibrium,
+                near.predicted_amplitude,
+                near.predicted_cycle,
+                ":",
+            )
+            for run in near.runs
+        ]
+    return traces
+
+
 def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
     """Write a PNG with the time series of the (up to four) most active states, each with
-    its predicted amplitude band, and a phase portrait with the predicted cycle."""
+    its predicted amplitude band at every offset, and a phase portrait with the predicted
+    cycles."""
     import matplotlib
 
     matplotlib.use("Agg")
@@ -33,7 +95,8 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
     shown = order[:MAX_STATE_ROWS]
     plane = order[:2]
     rows = len(shown)
-    fig = plt.figure(figsize=(11, 2.1 * rows + 1.6), layout="constrained")
+    traces = _traces(check)
+    fig = plt.figure(figsize=(11, 2.1 * rows + 1.9), layout="constrained")
     # one state (a scalar delay equation) has no phase plane: the time series only
     columns = 2 if len(plane) == 2 else 1
     grid = fig.add_gridspec(rows, columns, width_ratios=[1.6, 1][:columns])
@@ -43,23 +106,32 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
 
     for row, j in enumerate(shown):
         ax = axes[row]
-        # the outside run is drawn first: the (smaller) inside run stays visible on top
-        for run in reversed(check.runs):
+        # drawn last first: the inside run of a subcritical check and the farther offset's
+        # (larger) cycle stay visible on top of the longer runs
+        for trace in reversed(traces):
             ax.plot(
-                run.t,
-                run.x[:, j] - check.equilibrium[j],
-                color=RUN_COLOURS[run.label],
+                trace.run.t,
+                trace.run.x[:, j] - trace.equilibrium[j],
+                color=trace.colour,
                 lw=0.6,
-                label=_RUN_WORDS[(check.criticality, run.label)],
+                label=trace.words,
             )
-        amp = check.predicted_amplitude[j]
-        for sign in (1, -1):
-            ax.axhline(sign * amp, color=PREDICTION_COLOUR, ls="--", lw=1.0)
+        bands = {id(t.predicted_amplitude): t for t in traces}.values()
+        for trace in bands:
+            for sign in (1, -1):
+                ax.axhline(
+                    sign * trace.predicted_amplitude[j],
+                    color=PREDICTION_COLOUR,
+                    ls=trace.style,
+                    lw=1.0,
+                )
         ax.set_ylabel(f"{check.state_names[j]} - equilibrium")
     axes[-1].set_xlabel("time")
-    axes[0].set_title("time series (dashed: predicted amplitude)", fontsize=10)
+    title = "time series (black: predicted amplitude"
+    title += ", dashed / dotted: farther / closer offset)" if check.closer else ")"
+    axes[0].set_title(title, fontsize=10)
     if columns == 2:
-        handles = _phase_portrait(fig.add_subplot(grid[:, 1]), check, plane)
+        handles = _phase_portrait(fig.add_subplot(grid[:, 1]), check, traces, plane)
         fig.legend(handles=handles, loc="outside lower center", ncol=2, fontsize=8, frameon=False)
     else:
         fig.legend(loc="outside lower center", ncol=2, fontsize=8, frameon=False)
@@ -71,67 +143,85 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
     return path
 
 
-def _phase_portrait(phase, check: SimulationCheck, plane: np.ndarray) -> list:
-    """The runs and the predicted cycle in the plane of the two most active states."""
+def _phase_portrait(phase, check: SimulationCheck, traces: list[_Trace], plane) -> list:
+    """The runs and the predicted cycles in the plane of the two most active states."""
     handles = []
     settled = check.criticality == "supercritical"
-    for run in check.runs:
-        colour = RUN_COLOURS[run.label]
-        label = _RUN_WORDS[(check.criticality, run.label)]
+    a, b = plane
+    for trace in traces:
+        run, label = trace.run, trace.words
         if settled:
             # the transient faint, the last period strong: the settled cycle stands out
-            phase.plot(run.x[:, plane[0]], run.x[:, plane[1]], color=colour, lw=0.4, alpha=0.35)
+            phase.plot(run.x[:, a], run.x[:, b], color=trace.colour, lw=0.4, alpha=0.35)
             last = run.t >= run.t[-1] - check.predicted_period
             label += "; bold: last period"
         else:
             last = slice(None)
         (line,) = phase.plot(
-            run.x[last, plane[0]],
-            run.x[last, plane[1]],
-            color=colour,
+            run.x[last, a],
+            run.x[last, b],
+            color=trace.colour,
             lw=1.8 if settled else 0.6,
             label=label,
         )
         handles.append(line)
         if not settled:
-            phase.plot(run.x[-1, plane[0]], run.x[-1, plane[1]], "o", color=colour, ms=6)
+            phase.plot(run.x[-1, a], run.x[-1, b], "o", color=trace.colour, ms=6)
     if not settled:
         handles.append(
             phase.plot([], [], "o", color="#777777", ms=6, label="where the run stopped")[0]
         )
-    (pred,) = phase.plot(
-        check.predicted_cycle[:, plane[0]],
-        check.predicted_cycle[:, plane[1]],
-        color=PREDICTION_COLOUR,
-        ls="--",
-        lw=1.4,
-        label="predicted cycle and amplitude (normal form)",
-    )
-    (eq,) = phase.plot(
-        check.equilibrium[plane[0]], check.equilibrium[plane[1]], "kx", ms=8, label="equilibrium"
-    )
-    handles += [pred, eq]
-    phase.set_xlabel(check.state_names[plane[0]])
-    phase.set_ylabel(check.state_names[plane[1]])
+    cycles = list({id(t.predicted_cycle): t for t in traces}.values())
+    for k, trace in enumerate(cycles):
+        (pred,) = phase.plot(
+            trace.predicted_cycle[:, a],
+            trace.predicted_cycle[:, b],
+            color=PREDICTION_COLOUR,
+            ls=trace.style,
+            lw=1.4,
+            label=_cycle_words(k, len(cycles)),
+        )
+        handles.append(pred)
+    (eq,) = phase.plot(check.equilibrium[a], check.equilibrium[b], "kx", ms=8, label="equilibrium")
+    handles.append(eq)
+    phase.set_xlabel(check.state_names[a])
+    phase.set_ylabel(check.state_names[b])
     phase.set_title("phase portrait of the two most active states", fontsize=10)
     return handles
 
 
+def _cycle_words(k: int, count: int) -> str:
+    if count == 1:
+        return "predicted cycle (normal form)"
+    return "predicted cycle (normal form) at the " + ("closer" if k else "farther") + " offset"
+
+
 def _title(check: SimulationCheck) -> str:
     head = (
-        f"{check.model}: {check.criticality} onset, simulated at "
-        f"{check.bifurcation} = {check.value:.6g} (onset {check.critical_value:.6g})"
+        f"{check.model}: {check.criticality} onset at {check.bifurcation} = "
+        f"{check.critical_value:.6g}, simulated at {check.value:.6g}"
     )
-    if check.measured is not None:
-        j = int(np.argmax(check.predicted_amplitude))
-        measured = check.measured.amplitude[j]
-        return (
-            f"{head}\n{check.state_names[j]} amplitude: measured {measured:.4g}, "
-            f"predicted {check.predicted_amplitude[j]:.4g}; period: measured "
-            f"{check.measured.period:.4g}, predicted {check.predicted_period:.4g}"
+    if check.closer is not None:
+        head += f" and {check.closer.value:.6g}"
+    if check.measured is None:
+        outcomes = ", ".join(
+            f"from {run.label}: {OUTCOME_WORDS[run.outcome]} (t = {run.t_end:.3g})"
+            for run in check.runs
         )
-    outcomes = ", ".join(
-        f"from {run.label}: {OUTCOME_WORDS[run.outcome]} (t = {run.t_end:.3g})"
-        for run in check.runs
-    )
-    return f"{head}\n{outcomes}"
+        return f"{head}\n{outcomes}"
+    j = check.main_state
+    name = check.state_names[j]
+    measured = check.measured.amplitude[j]
+    lines = [
+        head,
+        f"{name} amplitude at the farther offset: measured {measured:.4g}, predicted "
+        f"{check.predicted_amplitude[j]:.4g}; period: measured {check.measured.period:.4g}, "
+        f"predicted {check.predicted_period:.4g}",
+    ]
+    if check.onset is not None:
+        lines.append(
+            f"{name} amplitude coefficient extrapolated to onset: K = "
+            f"{check.onset.coefficient[j]:.5g}, predicted {check.predicted_coefficient[j]:.5g} "
+            f"({100 * check.onset_amplitude_error[j]:+.2f}%)"
+        )
+    return "\n".join(lines)
