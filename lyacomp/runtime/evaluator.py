@@ -112,10 +112,19 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
     return {**mapping, **keywords}
 
 
-_NOT_FOR_DELAYS = (
-    "{what} is not available for models with delays yet (only for ODE models); the delay"
-    " kernel gives l1, the critical value, omega, the equilibrium and the root count"
-)
+#: What delay kernels do not compute yet (the refusals of ``delay_refusal``).
+DELAY_L2 = "the second Lyapunov coefficient"
+DELAY_DEGENERATE = "the degenerate point"
+DELAY_DERIVATIVES = "exact derivatives (derivatives=True)"
+
+
+def delay_refusal(what: str) -> EvaluationError:
+    """The one refusal of what delay kernels do not compute yet."""
+    return EvaluationError(
+        f"{what} is not available for models with delays yet (only for ODE models); the delay"
+        " kernel gives l1, the critical value, omega, the equilibrium and the root count"
+        " (with the guess-based or the operating-point search)"
+    )
 
 
 def _derivatives_need_guess_search(method: str, guess: Any = None) -> None:
@@ -215,8 +224,8 @@ class Evaluator:
         self._local = threading.local()
         self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
+        self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
         # absent from delay kernels (not built for delay equations yet): None
-        self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from", None)
         self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient", None)
         self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point", None)
         self._derivative_twin: Evaluator | None = None
@@ -391,7 +400,7 @@ class Evaluator:
     def _second_coefficient(self, p: Any, res: Any, result: HopfResult) -> None:
         """Compute l2 at the Hopf point of ``res`` and attach it to ``result``."""
         if self._l2_kernel is None:
-            raise EvaluationError(_NOT_FOR_DELAYS.format(what="the second Lyapunov coefficient"))
+            raise delay_refusal(DELAY_L2)
         value = self.ffi.new("double *")
         gain = self.ffi.new("double[]", len(self.states))
         self._l2_kernel(p, res, value, gain)
@@ -407,7 +416,7 @@ class Evaluator:
 
         Raises DegeneratePointError when it is not found."""
         if self._degenerate_kernel is None:
-            raise EvaluationError(_NOT_FOR_DELAYS.format(what="the degenerate point"))
+            raise delay_refusal(DELAY_DEGENERATE)
         values = _names(params, values, "parameters")
         row = self._nominal.copy()
         try:
@@ -470,6 +479,8 @@ class Evaluator:
                 "derivatives need a bifurcation parameter: without one the given point is not "
                 "followed when a parameter changes (add [bifurcation] parameter = ... to the model)"
             )
+        if self.model.delays:
+            raise delay_refusal(DELAY_DERIVATIVES)
         if hasattr(self.lib, f"{PREFIX}_evaluate_derivatives"):
             return self
         if self._derivative_twin is None:
@@ -641,8 +652,6 @@ class Evaluator:
                     count, shape, c_params, c_strides, bif_guess, op_array, threads, c_out
                 )
             elif guesses:
-                if self._evaluate_batch_from is None:
-                    raise EvaluationError(_NOT_FOR_DELAYS.format(what="per-sample guesses"))
                 state_columns, state_strides = self._guess_columns(guesses, shape)
                 c_guesses = ffi.new(
                     "double *[]",

@@ -33,11 +33,6 @@ def chosen_search(ev: Any, search: str | None, operating: Any) -> str:
             "the operating-point search moves the bifurcation parameter; this model "
             "declares none ([bifurcation] parameter)"
         )
-    if ev.model.delays:
-        raise EvaluationError(
-            "the operating-point search is not available for models with delays yet; use"
-            " search='guess' (and drop the model's operating value)"
-        )
     if ev.model.critical_value is not None:
         raise EvaluationError(
             "this model gives its critical value in closed form; the operating-point search "
