@@ -36,6 +36,7 @@ from typing import Any
 import numpy as np
 
 from lyacomp.errors import StudyError
+from lyacomp.runtime.evaluator import DELAY_DERIVATIVES, delay_refusal
 from lyacomp.status import Status
 from lyacomp.studies.robustness import fixed_values, study_setup
 from lyacomp.studies.uncertainty import LogNormal, chunk_rng, draw_scores
@@ -81,10 +82,12 @@ class DesignSpace:
 
     ``step`` is the relative central-difference step: ``h_i = step * max(|x_i|, s_i)``
     with ``s_i`` the magnitude of the starting value (1 where that is 0).
-    ``gradients="exact"`` (default) takes the gradients of l1, the critical value, omega
-    and the period from the exact derivatives of one evaluation at ``x``
-    (``batch(..., derivatives=True)``); the other outputs, and every output with
-    ``gradients="differences"``, use the central-difference stencil.
+    ``gradients="exact"`` (the default with a bifurcation parameter) takes the gradients of
+    l1, the critical value, omega and the period from the exact derivatives of one
+    evaluation at ``x`` (``batch(..., derivatives=True)``); the other outputs, and every
+    output with ``gradients="differences"`` (the default without a bifurcation parameter
+    and for delay models, whose kernels have no exact derivatives yet), use the
+    central-difference stencil.
     """
 
     def __init__(
@@ -95,9 +98,14 @@ class DesignSpace:
         *,
         step: float = 1e-5,
         threads: int | None = None,
-        gradients: str = "exact",
+        gradients: str | None = None,
     ):
         free = list(free)
+        if gradients is None:
+            # exact derivatives need a bifurcation parameter (the Hopf point is followed);
+            # delay kernels do not compute them yet
+            exact = ev.bifurcation is not None and not ev.model.delays
+            gradients = "exact" if exact else "differences"
         if gradients not in GRADIENTS:
             raise StudyError(f"gradients must be one of {', '.join(GRADIENTS)}; got {gradients!r}")
         if not free:
@@ -128,7 +136,9 @@ class DesignSpace:
         self.threads = threads
         self._cache_key: bytes | None = None
         self._cache: Any = None
-        # exact derivatives need a bifurcation parameter (the Hopf point is followed)
+        if gradients == "exact" and ev.model.delays:
+            refusal = delay_refusal(DELAY_DERIVATIVES)
+            raise StudyError(f"{refusal}; use gradients='differences' (their default)")
         self.gradients = gradients if ev.bifurcation is not None else "differences"
         self._exact_key: bytes | None = None
         self._exact: Any = None

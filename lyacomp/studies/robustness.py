@@ -767,10 +767,20 @@ def run_robustness(
     )
 
 
+#: Why a delay model gets no FORM answer: FORM needs exact derivatives, which delay
+#: kernels do not compute yet (the Monte Carlo estimate does not need them).
+DELAY_FORM_NOTE = (
+    "FORM needs exact derivatives, not available for models with delays yet; the Monte Carlo"
+    " estimate above stands alone"
+)
+
+
 def _first_order(
     ev: Any, spec: UncertaintySpec, fixed: Mapping[str, float]
 ) -> tuple[ReliabilityResult | None, str | None, list[Sensitivity]]:
     """FORM index and local sensitivities, or the reason there are none."""
+    if ev.model.delays:
+        return None, DELAY_FORM_NOTE, []
     try:
         form = reliability_index(ev, spec, fixed)
     except StudyError as exc:
