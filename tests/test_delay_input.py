@@ -187,11 +187,15 @@ def _delay_variant(mode: str) -> lyacomp.Model:
         extra["bifurcation"] = "tau"
     elif mode == "closed_forms":
         extra.update(bifurcation="r", critical_value="0", equilibrium={"x": "0", "y": "0"})
+    elif mode == "equilibrium_form":  # the operating search then follows mu alone
+        extra.update(bifurcation="r", equilibrium={"x": "0", "y": "0"}, operating=0.0)
     return _model(equations, **extra)
 
 
 @pytest.mark.skipif(shutil.which("cc") is None, reason="needs a C compiler on PATH")
-@pytest.mark.parametrize("mode", ["newton", "delay_parameter", "no_bifurcation", "closed_forms"])
+@pytest.mark.parametrize(
+    "mode", ["newton", "delay_parameter", "no_bifurcation", "closed_forms", "equilibrium_form"]
+)
 def test_every_delay_template_variant_compiles_without_warnings(mode, tmp_path):
     # Common practice, no source: generated code must be warning-free under -Wall -Wextra.
     sources = lyacomp.generate(_delay_variant(mode), header_name="variant.h")
