@@ -177,10 +177,10 @@ def _onset_table(check) -> list[str]:
         f"{100 * check.onset_period_error:>9.2f}%"
     )
     lines.append(f"  compared: {compared_numbers(check)}")
-    fold = fit.fold_offset
-    if fold is not None and fold < FOLD_NOTE_RANGE * abs(check.offset):
+    fold = check.fold_offset
+    if fold is not None and abs(fold) < FOLD_NOTE_RANGE * abs(check.offset):
         lines.append(
-            f"  note: the fitted slope would put a fold of cycles near offset {fold:.3g} "
+            f"  note: the fitted slope would put a fold of cycles near offset {fold:+.3g} "
             "(an estimate from the truncated normal form; the cycle may jump there)"
         )
     if not fit.valid:

@@ -262,6 +262,13 @@ class SimulationCheck:
         return self.onset.period / self.predicted_period - 1.0
 
     @property
+    def fold_offset(self) -> float | None:
+        """The fitted fold-of-cycles estimate as an offset (the sign of the simulated
+        ones), or None."""
+        fold = self.onset.fold_offset if self.onset is not None else None
+        return None if fold is None else math.copysign(fold, self.offset)
+
+    @property
     def agrees(self) -> bool:
         """Supercritical: both runs settled on a cycle, the extrapolation is valid, the
         extrapolated amplitude coefficient of the main state is within
@@ -325,7 +332,7 @@ class SimulationCheck:
                 },
                 "slope": _by_state(names, fit.slope),
                 "correction": fit.correction,
-                "fold_offset": fit.fold_offset,
+                "fold_offset": self.fold_offset,
                 "relative_error": {
                     "coefficient": _by_state(names, self.onset_amplitude_error),
                     "period": self.onset_period_error,

@@ -66,16 +66,17 @@ def test_fit_refuses_offsets_too_large_or_amplitudes_that_do_not_shrink():
 
 
 def planar_bautin(s: float, t: float) -> lyacomp.Model:
-    """x + i y = u with u' = (mu - m + i w) u + s u |u|^2 + t u |u|^4: in polar form
-    r' = r (mu - m + s r^2 + t r^4), theta' = w (Kuznetsov 2004, ch. 8)."""
+    """x + i y = u with u' = (m - mu + i w) u + s u |u|^2 + t u |u|^4: in polar form
+    r' = r (m - mu + s r^2 + t r^4), theta' = w (Kuznetsov 2004, ch. 8). The cycle lives
+    below m (negative offsets: the sign handling is checked too)."""
     r2 = "(x**2 + y**2)"
     return lyacomp.Model(
         name="planar_bautin",
         states={"x": 0.0, "y": 0.0},
         parameters={"mu": 0.2, "m": 0.2, "w": 1.0, "s": s, "t": t},
         equations={
-            "x": f"(mu - m)*x - w*y + x*(s*{r2} + t*{r2}**2)",
-            "y": f"w*x + (mu - m)*y + y*(s*{r2} + t*{r2}**2)",
+            "x": f"(m - mu)*x - w*y + x*(s*{r2} + t*{r2}**2)",
+            "y": f"w*x + (m - mu)*y + y*(s*{r2} + t*{r2}**2)",
         },
         bifurcation="mu",
     )
@@ -97,6 +98,10 @@ def test_planar_normal_form_with_quintic_term_extrapolates_to_the_cubic_relation
     assert np.all(np.abs(check.onset_amplitude_error) < 2e-4), check.to_dict()["onset"]
     assert check.onset.slope[0] == pytest.approx(-t, rel=2e-3)
     assert check.onset.period == pytest.approx(2 * math.pi, rel=1e-6)
+    # the fold of cycles of this form at beta1 = s^2 / (4 t) (same source), on the side
+    # of the simulated offsets
+    assert check.offset < 0
+    assert check.fold_offset == pytest.approx(-s * s / (4 * t), rel=1e-2)
     assert check.agrees
 
 
