@@ -1,6 +1,7 @@
 /* Driver for counting the floating-point work of a generated lyacomp kernel (see flops.py).
  *
- * Calls PREFIX_evaluate once per parameter row, set up as one sample of a batch call is.
+ * Calls PREFIX_evaluate once per parameter row, set up as one sample of a batch call is,
+ * or with -DBATCH PREFIX_evaluate_batch once over all rows (one thread).
  * flops.py builds it next to the emitted model.c / model.h with
  *   -DPREFIX=<prefix>  -DEVALUATE_ARGS="row, guess, ..."  and, when the interface has a
  *   warm start, -DPREPARE_ARGS="nominal, guess, ..." (argument order read from cffi).
@@ -45,11 +46,54 @@ int main(int argc, char **argv)
     CAT(PREFIX, _prepare_start)(PREPARE_ARGS);
 #endif
     long ok = 0;
+#ifdef BATCH
+    /* One batch call over all rows on one thread, as the batch benchmark times it (with
+       the warm start: the lane path of two- and three-state models). */
+    const double **columns = malloc(sizeof(double *) * (size_t)(np > 0 ? np : 1));
+    long *strides = malloc(sizeof(long) * (size_t)(np > 0 ? np : 1));
+    int *status = malloc(sizeof(int) * (size_t)rows);
+    int *unstable = malloc(sizeof(int) * (size_t)rows);
+    signed char *small = malloc((size_t)(3 * rows));
+    double *values = malloc(sizeof(double) * (size_t)(rows * (5 + 2 * n)));
+    for (long k = 0; k < np; k++) {
+        columns[k] = params + k;
+        strides[k] = np;
+    }
+    CAT(PREFIX, _batch_out) out;
+    out.status = status;
+    out.unstable_count = unstable;
+    out.criticality = small;
+    out.cycle_side = small + rows;
+    out.stable_side = small + 2 * rows;
+    out.l1 = values;
+    out.omega = values + rows;
+    out.period = values + 2 * rows;
+    out.critical_value = values + 3 * rows;
+    out.transversality = values + 4 * rows;
+    out.equilibrium = values + 5 * rows;
+    out.amplitude = values + (5 + n) * rows;
+#ifdef PREPARE_ARGS
+    CAT(PREFIX, _evaluate_batch)(rows, columns, strides, guess, &start, &options, 1, &out);
+#else
+    CAT(PREFIX, _evaluate_batch)(rows, columns, strides, guess, NULL, &options, 1, &out);
+#endif
+    for (long i = 0; i < rows; i++) {
+        ok += status[i] == 0;
+    }
+    free(columns);
+    free(strides);
+    free(status);
+    free(unstable);
+    free(small);
+    free(values);
+    (void)result;
+#else
     for (long i = 0; i < rows; i++) {
         const double *row = params + i * np;
         CAT(PREFIX, _evaluate)(EVALUATE_ARGS);
         ok += result.status == 0;
     }
+#endif
     printf("%ld\n", ok);
     (void)nominal;
     free(params);
