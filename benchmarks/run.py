@@ -20,6 +20,7 @@ os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
 import argparse  # noqa: E402
 import hashlib  # noqa: E402
 import platform  # noqa: E402
+import shutil  # noqa: E402
 import sys  # noqa: E402
 import tempfile  # noqa: E402
 import time  # noqa: E402
@@ -262,6 +263,36 @@ def measure_limits(m1: dict, s: Settings, cores: int, quick: bool) -> tuple[dict
     return pk, fl, ops
 
 
+def measure_lane_flops(models: dict, pk: dict, s: Settings) -> dict:
+    """Flops per sample of the batch (lane) path of M2 and M3 and the share of the FMA peak
+    they reach, per CPU second of the 1-thread run (issue 11).
+
+    The figure is callgrind's count of executed instructions when valgrind is there (exact,
+    4 lanes), else gcc's profile-weighted GIMPLE (8 lanes; its block counts are gcc's own
+    where it copied code); both are kept when both run.
+    """
+    command, flags, _ = peak.toolchain_flags()
+    out = {}
+    for label in ("M2", "M3"):
+        m = models[label]
+        samples = m["_samples"][: s.flop_samples]
+        log(f"{label}: counting floating-point operations of the batch (lane) path")
+        entry = {"gimple": flops.count_kernel(m["_ev"], samples, flags, command, batch=True)}
+        if shutil.which("valgrind") and shutil.which("objdump"):
+            entry["callgrind"] = flops.count_executed(m["_ev"], samples, flags, command)
+        used = entry.get("callgrind", entry["gimple"])
+        entry["counted_by"] = "callgrind" if "callgrind" in entry else "gimple"
+        entry["flops_per_sample"] = used["flops_per_sample"]
+        entry["gflops_per_cpu_second"] = (
+            used["flops_per_sample"] * m["compiled_1t"]["cpu_rate"] / 1e9
+        )
+        entry["fraction_of_core_peak"] = (
+            entry["gflops_per_cpu_second"] / pk["gflops_per_cpu_second_1t"]
+        )
+        out[label] = entry
+    return out
+
+
 def measure_scaling(models: dict, ring: list[int], scratch: Path) -> dict:
     """Per-sample cost against n on M4, fitted exponents, and a perf profile at the largest n.
 
@@ -346,6 +377,7 @@ def main(argv: list[str] | None = None) -> int:
         results["peak"], results["flops"], results["op_costs_ns"] = measure_limits(
             m1, s, cores, args.quick
         )
+        results["lane_flops"] = measure_lane_flops(models, results["peak"], s)
         results["scaling"] = measure_scaling(models, list(s.ring_sizes), scratch)
         log(f"M1: streamed robustness run, {s.memory_samples:.0e} samples (peak RSS)")
         results["memory"] = probes.streamed_memory(
