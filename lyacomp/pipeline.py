@@ -32,7 +32,7 @@ from .derive.higher import derive_higher
 from .errors import BuildError, LyacompError
 from .model import Model, load_model
 from .runtime import Evaluator, Tolerances
-from .runtime.evaluator import PREFIX, register_rebuild
+from .runtime.evaluator import EXTENDED, PLAIN, PREFIX, VARIANTS, register_rebuild
 
 log = logging.getLogger("lyacomp")
 #: Progress notes (the CLI shows them on a terminal): a cold build takes seconds.
@@ -72,18 +72,28 @@ def generate(
     key: str = "0" * 64,
     prefix: str = PREFIX,
     header_name: str = "model.h",
-    derivatives: bool = False,
+    variant: str = EXTENDED,
 ) -> CSources:
-    """Derive and render the C sources of a model (no compilation); ``derivatives`` adds
-    the entry points with exact parameter derivatives (models with a bifurcation parameter;
-    their symbolic work grows quickly with the model, so it is built only when asked for)."""
+    """Derive and render the C sources of a model (no compilation).
+
+    ``variant`` chooses the stages: ``"plain"`` (the Hopf point, l1, the batch drivers and
+    the operating-point search: what a first ``compile`` builds, kept small so that it
+    compiles fast) or ``"extended"`` (everything: also the second Lyapunov coefficient,
+    the degenerate point and, for models with a bifurcation parameter, the exact parameter
+    derivatives; the evaluator builds it on first use, ``lyacomp emit`` writes it).
+    """
+    if variant not in VARIANTS:
+        raise LyacompError(f"unknown variant {variant!r}; choose one of {list(VARIANTS)}")
     derived = derive(model.symbolic())
     lowered = lower(derived)
-    higher = lower_higher(derive_higher(derived))
-    # Exact parameter derivatives follow the Hopf point, so they need a bifurcation parameter.
-    sensitivity = None
-    if derivatives and model.bifurcation is not None:
-        sensitivity = lower_sensitivity(derived, derive_sensitivity(derived))
+    higher = sensitivity = None
+    # The fourth and fifth derivatives (l2) and the parameter derivatives are most of the
+    # symbolic and C compiler work of a small model, so the plain variant leaves them out.
+    if variant == EXTENDED and not model.delays:  # delay kernels have neither stage yet
+        higher = lower_higher(derive_higher(derived))
+        # Exact parameter derivatives follow the Hopf point: they need a bifurcation parameter.
+        if model.bifurcation is not None:
+            sensitivity = lower_sensitivity(derived, derive_sensitivity(derived))
     return render(
         model,
         lowered,
@@ -95,16 +105,22 @@ def generate(
     )
 
 
-def model_key(model: Model, config: BuildConfig, derivatives: bool = False) -> str:
-    """Cache key: model, generator code, templates, compiler and flags, version, Python ABI
-    (and whether the derivative entry points are in)."""
-    return _key(model, toolchain(config), derivatives)
+def model_key(model: Model, config: BuildConfig, variant: str = PLAIN) -> str:
+    """Cache key: model, variant, generator code, templates, compiler and flags, version,
+    Python ABI."""
+    return _key(model, toolchain(config), variant)
 
 
-def _key(model: Model, tc: Toolchain, derivatives: bool = False) -> str:
+_VARIANT_KEY_TEXT = {
+    PLAIN: "plain",
+    EXTENDED: "extended: l2, degenerate point, derivative entry points",
+}
+
+
+def _key(model: Model, tc: Toolchain, variant: str = PLAIN) -> str:
     return cache_key(
         model.canonical(),
-        "with derivative entry points" if derivatives else "plain",
+        _VARIANT_KEY_TEXT[variant],
         generator_digest_input(PACKAGE_ROOT),
         templates_digest_input(),
         tc.identity(),
@@ -120,18 +136,28 @@ def compile_model(
 ) -> Evaluator:
     """Compile a model (or a model file) into an :class:`Evaluator`, using the cache.
 
-    ``derivatives=True`` builds the exact-derivative entry points right away; otherwise
-    the first call that asks for derivatives builds them (a second cached library).
+    The first build holds the plain variant (see :func:`generate`); the first call that
+    asks for l2, the degenerate point or derivatives builds the extended one (a second
+    cached library). ``derivatives=True`` builds the extended variant right away.
 
     A damaged cache entry (torn metadata, a library whose size or SHA-256 differs from
     the install record, a file where a folder belongs) is rebuilt with one warning.
     """
+    return _compile(model, config, tolerances, EXTENDED if derivatives else PLAIN)
+
+
+def _compile(
+    model: Model | str | Path,
+    config: BuildConfig | None,
+    tolerances: Tolerances | None,
+    variant: str,
+) -> Evaluator:
     if not isinstance(model, Model):
         model = load_model(model)
     config = config or BuildConfig.from_environment()
     tc = toolchain(config)
     try:
-        key, module = _build_or_load(model, config, tc, derivatives)
+        key, module = _build_or_load(model, config, tc, variant)
     except BuildError:
         if not tc.remembered:
             raise
@@ -139,21 +165,22 @@ def compile_model(
         # record) must not fail every later build: probe once more and retry.
         log.warning("the build failed with remembered compiler flags; probing the compiler again")
         forget_probe(tc, config)
-        key, module = _build_or_load(model, config, toolchain(config), derivatives)
+        key, module = _build_or_load(model, config, toolchain(config), variant)
     return Evaluator(model, module, key, tolerances or Tolerances(), config)
 
 
 def _build_or_load(
-    model: Model, config: BuildConfig, tc: Toolchain, derivatives: bool = False
+    model: Model, config: BuildConfig, tc: Toolchain, variant: str = PLAIN
 ) -> tuple[str, object]:
-    key = _key(model, tc, derivatives)
+    key = _key(model, tc, variant)
     start = time.perf_counter()
     entry, _problem = check_entry(config.cache_dir, key)
     if entry is None:
         with key_lock(config.cache_dir, key, config.lock_timeout, model.name):
             entry, problem = check_entry(config.cache_dir, key)  # another process may be done
             if entry is None:
-                progress_log.info("compiling %r (first use; a few seconds) ...", model.name)
+                what = "first use" if variant == PLAIN else "l2, degenerate point, derivatives"
+                progress_log.info("compiling %r (%s; a few seconds) ...", model.name, what)
                 if problem is not None:
                     log.warning(
                         "cache entry %s is damaged (%s); rebuilding it",
@@ -162,23 +189,26 @@ def _build_or_load(
                     )
                 # plain builds keep the four-argument call (tests stand in for _build)
                 entry = (
-                    _build(model, config, tc, key, derivatives)
-                    if derivatives
-                    else _build(model, config, tc, key)
+                    _build(model, config, tc, key)
+                    if variant == PLAIN
+                    else _build(model, config, tc, key, variant)
                 )
-                log.info("compiled %r in %.2f s", model.name, time.perf_counter() - start)
+                log.info(
+                    "compiled %r (%s) in %.2f s", model.name, variant, time.perf_counter() - start
+                )
     else:
-        log.info("loaded %r from cache", model.name)
+        log.info("loaded %r (%s) from cache", model.name, variant)
     return key, load_extension(entry, lambda: _scratch_dir(config, key))
 
 
 def _build(
-    model: Model, config: BuildConfig, tc: Toolchain, key: str, derivatives: bool = False
+    model: Model, config: BuildConfig, tc: Toolchain, key: str, variant: str = PLAIN
 ) -> Entry:
-    sources = generate(model, key, derivatives=derivatives)
+    sources = generate(model, key, variant=variant)
     build_dir = new_build_dir(config.cache_dir, key)
     meta = build_extension(sources, tc, build_dir, key)
     meta["model"] = model.name
+    meta["variant"] = variant
     entry = install_entry(build_dir, config.cache_dir, key, meta, config.keep_build)
     if config.keep_build:
         log.info("build directory kept at %s", build_dir)
@@ -212,12 +242,12 @@ def _rebuild(
     return ev.with_guess(**state_guess)
 
 
-def _derivative_build(
-    model: Model, tolerances: Tolerances, config: BuildConfig, state_guess: dict
+def _twin_build(
+    model: Model, tolerances: Tolerances, config: BuildConfig, state_guess: dict, variant: str
 ) -> Evaluator:
-    """The same model with the exact-derivative entry points (built on first use)."""
-    ev = compile_model(model, config=config, tolerances=tolerances, derivatives=True)
+    """The same model built as another variant (on the first call that needs it)."""
+    ev = _compile(model, config, tolerances, variant)
     return ev.with_guess(**state_guess)
 
 
-register_rebuild(_rebuild, _derivative_build)
+register_rebuild(_rebuild, _twin_build)

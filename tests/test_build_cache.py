@@ -4,9 +4,11 @@ from __future__ import annotations
 
 import json
 import os
+import pickle
 import subprocess
 import sys
 import textwrap
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 
 import pytest
@@ -89,6 +91,45 @@ def test_two_processes_compile_the_same_new_model(tmp_path):
     # 16 a = f_xxx = -42 (Guckenheimer & Holmes 1983, eq. 3.4.11, number from memory).
     assert float(outputs[0][0]) == float(outputs[1][0]) == pytest.approx(2 * (-42 / 16))
     assert len(list(Path(tmp_path).glob("??/*/meta.json"))) == 1
+
+
+def test_l2_degenerate_point_and_derivatives_come_from_one_twin_built_once(tmp_path, monkeypatch):
+    # Common practice, no source: the plain build leaves out the l2, degenerate-point and
+    # derivative stages; the first call that needs one of them builds the extended twin
+    # (its own cache entry) once, even from several threads at the same time.
+    config = BuildConfig(cache_dir=tmp_path)
+    model = _model("-5", name="twin probe")
+    ev = pipeline.compile_model(model, config=config)
+    for name in ("second_coefficient", "degenerate_point", "evaluate_derivatives"):
+        assert not hasattr(ev.lib, f"lyc_{name}")
+    twin_key = pipeline.model_key(model, config, "extended")
+    assert twin_key != ev.key == pipeline.model_key(model, config)
+    builds = []
+    real_build = pipeline._build
+
+    def counted(*args):
+        builds.append(args[-1])
+        return real_build(*args)
+
+    monkeypatch.setattr(pipeline, "_build", counted)
+    with ThreadPoolExecutor(4) as pool:
+        results = list(pool.map(lambda _: ev(l2=True), range(8)))
+    assert builds == ["extended"]
+    meta = json.loads((tmp_path / twin_key[:2] / twin_key / "meta.json").read_text())
+    assert meta["variant"] == "extended"
+    eager = pipeline.compile_model(model, config=config, derivatives=True)
+    assert eager.key == twin_key and builds == ["extended"]  # a cache hit
+    # x' = mu x - y - 5 x^3, y' = x + mu y: l1 = 2 a / omega with 16 a = f_xxx = -30
+    # (Guckenheimer & Holmes 1983, eq. 3.4.11, number from memory); l2 from both libraries.
+    assert [r.l1 for r in results] == pytest.approx([2 * (-30 / 16)] * 8)
+    assert {r.l2 for r in results} == {eager(l2=True).l2}
+    assert ev(derivatives=True).derivatives is not None
+    # An unpickled evaluator (as on a worker) starts plain and builds or loads its twin
+    # lazily, with the receiver's cache.
+    monkeypatch.setenv("LYACOMP_CACHE_DIR", str(tmp_path))
+    copy = pickle.loads(pickle.dumps(ev))
+    assert not hasattr(copy.lib, "lyc_second_coefficient")
+    assert copy(l2=True).l2 == results[0].l2 and builds == ["extended"]
 
 
 def test_missing_compiler_is_reported_with_install_hint(tmp_path):

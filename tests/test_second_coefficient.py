@@ -82,6 +82,8 @@ def test_degenerate_point_reports_l2_and_onset(bautin, s):
     # l1 = 2 b2 = 0: degenerate; l2 = 4 s decides (math.md: l2 < 0 soft, l2 > 0 hard).
     r = bautin(b2=0.0, s=s)
     assert r.criticality == "degenerate"
+    # the plain library has no l2 stage: the evaluator fetched l2 from its extended twin
+    assert not hasattr(bautin.lib, "lyc_second_coefficient")
     assert r.l2 == pytest.approx(4 * s, rel=1e-12)
     assert r.degenerate_onset == ("soft" if s < 0 else "hard")
     assert r.to_dict()["l2"] == pytest.approx(4 * s, rel=1e-12)

@@ -90,12 +90,13 @@ def render(
     prefix: str,
     key: str,
     header_name: str,
-    higher: LoweredHigher,
+    higher: LoweredHigher | None = None,
     sensitivity: SensitivityLowered | None = None,
 ) -> CSources:
-    """Render the C unit (for cffi and standalone use) of one lowered model; ``higher``
-    carries the second-Lyapunov-coefficient kernel; with ``sensitivity`` (models with a
-    bifurcation parameter) the derivative entry points too."""
+    """Render the C unit (for cffi and standalone use) of one lowered model; with
+    ``higher`` (the extended variant) it has the second-Lyapunov-coefficient and the
+    degenerate-point stages; with ``sensitivity`` (models with a bifurcation parameter)
+    the derivative entry points too."""
     env = _environment()
     if not isinstance(key, str) or not _KEY.fullmatch(key):
         raise ModelError("the cache key must be 16 to 64 lowercase hexadecimal digits")
@@ -144,8 +145,9 @@ def render(
         "chain": lowered.chain,
         "critical_value": lowered.critical_value,
         "equilibrium": lowered.equilibrium,
+        # The l2 and degenerate-point stages (the extended variant only).
         "higher": higher,
-        "l2_rhs": {c.name: c for c in higher.recipe},
+        "l2_rhs": {c.name: c for c in higher.recipe} if higher else {},
         "solve_mu": lowered.bif_index >= 0 and lowered.critical_value is None,
         # n <= 3: the Hopf point solves a reduced system (trace or Routh-Hurwitz) and the
         # spectrum follows in closed form, so no eigenvalue routine is needed.

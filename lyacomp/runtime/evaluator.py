@@ -23,6 +23,13 @@ from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
 
+PLAIN = "plain"
+"""The library a first compile builds: Hopf point, l1, batch drivers, operating search."""
+EXTENDED = "extended"
+"""The twin library built on first use: everything, also l2, the degenerate point and the
+exact parameter derivatives (one library, so these stages can call each other)."""
+VARIANTS = (PLAIN, EXTENDED)
+
 MAX_THREADS = 4096
 """Largest thread count a batch call takes (the C driver takes an int; more is a typo)."""
 
@@ -225,10 +232,12 @@ class Evaluator:
         self._null = self.ffi.NULL
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
-        # absent from delay kernels (not built for delay equations yet): None
+        # l2 and the degenerate point live in the extended variant (none for delay models)
         self._l2_kernel = getattr(self.lib, f"{PREFIX}_second_coefficient", None)
-        self._degenerate_kernel = getattr(self.lib, f"{PREFIX}_degenerate_point", None)
-        self._derivative_twin: Evaluator | None = None
+        self._has_l2 = not model.delays
+        self._extended = self._l2_kernel is not None
+        self._twins: dict[str, Evaluator] = {}
+        self._twin_lock = threading.Lock()
         # Solve once at nominal values; later calls start Newton there (they fall back to
         # the model's guesses if that fails), unless they set the bifurcation guess.
         self._start = self.ffi.new(f"{PREFIX}_start *")
@@ -381,7 +390,7 @@ class Evaluator:
             self._evaluate(p, self._guess, start, self._options, res)
             guess = row[self._index[self.bifurcation]] if self.bifurcation else None
             result = HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
-        if l2 or (res.criticality == Criticality.DEGENERATE and self._l2_kernel is not None):
+        if l2 or (res.criticality == Criticality.DEGENERATE and self._has_l2):
             self._second_coefficient(p, res, result)
         return result
 
@@ -398,12 +407,22 @@ class Evaluator:
         return HopfResult(res, self.states, self.bifurcation, search)
 
     def _second_coefficient(self, p: Any, res: Any, result: HopfResult) -> None:
-        """Compute l2 at the Hopf point of ``res`` and attach it to ``result``."""
-        if self._l2_kernel is None:
+        """Compute l2 at the Hopf point of ``res`` and attach it to ``result`` (in the
+        extended twin when this library is the plain one)."""
+        if not self._has_l2:
             raise delay_refusal(DELAY_L2)
-        value = self.ffi.new("double *")
-        gain = self.ffi.new("double[]", len(self.states))
-        self._l2_kernel(p, res, value, gain)
+        twin = self._twin(EXTENDED)
+        ffi = twin.ffi
+        if twin is not self:
+            # The struct types belong to each library's ffi: copy the bytes across (the
+            # layout is the same, both come from the same model and api.h.j2).
+            size = self.ffi.sizeof(res[0])
+            res, copy = ffi.new(twin._result_type), res
+            ffi.memmove(res, self.ffi.buffer(copy, size), size)
+            p = ffi.new(twin._params_type, list(p))
+        value = ffi.new("double *")
+        gain = ffi.new("double[]", len(self.states))
+        twin._l2_kernel(p, res, value, gain)
         result._set_second_coefficient(
             float(value[0]), {s: float(gain[i]) for i, s in enumerate(self.states)}
         )
@@ -415,7 +434,7 @@ class Evaluator:
         from ``name``'s value (nominal, or given here), with l2 there.
 
         Raises DegeneratePointError when it is not found."""
-        if self._degenerate_kernel is None:
+        if not self._has_l2:
             raise delay_refusal(DELAY_DEGENERATE)
         values = _names(params, values, "parameters")
         row = self._nominal.copy()
@@ -424,7 +443,8 @@ class Evaluator:
                 row[self._index[key]] = _real_scalar(value, f"parameter {key}")
         except KeyError:
             raise self._unknown(values) from None
-        return locate_degenerate(self, name, row, self.bifurcation not in values)
+        twin = self._twin(EXTENDED)
+        return locate_degenerate(twin, name, row, self.bifurcation not in values)
 
     def evaluate_derivatives(
         self, params: Mapping[str, float] | None = None, /, **values: float
@@ -452,7 +472,7 @@ class Evaluator:
             search,
             derivatives=derivatives_of(der, self.parameters, self),
         )
-        if l2 or res.criticality == Criticality.DEGENERATE:
+        if l2 or (res.criticality == Criticality.DEGENERATE and self._has_l2):
             self._second_coefficient(p, res, result)
         return result
 
@@ -472,8 +492,8 @@ class Evaluator:
         return tuple(p for p in self.parameters if p != self.bifurcation)
 
     def _with_derivatives(self) -> Evaluator:
-        """This evaluator if its library has the derivative entry points, else the same
-        model built with them (once; cached like every build)."""
+        """The evaluator whose library has the derivative entry points: this one, or its
+        extended twin."""
         if self.bifurcation is None:
             raise EvaluationError(
                 "derivatives need a bifurcation parameter: without one the given point is not "
@@ -481,15 +501,26 @@ class Evaluator:
             )
         if self.model.delays:
             raise delay_refusal(DELAY_DERIVATIVES)
-        if hasattr(self.lib, f"{PREFIX}_evaluate_derivatives"):
+        return self._twin(EXTENDED)
+
+    def _twin(self, variant: str) -> Evaluator:
+        """This evaluator if its library is ``variant`` (or holds everything of it), else
+        the same model, tolerances and guesses built as ``variant``: once per evaluator,
+        on first use, through the cache (so another process or thread builds it once)."""
+        if variant == PLAIN or self._extended:
             return self
-        if self._derivative_twin is None:
-            if _DERIVATIVE_BUILD is None:
-                raise InternalError("no derivative build hook registered; import lyacomp first")
-            self._derivative_twin = _DERIVATIVE_BUILD(
-                self.model, self.tolerances, self._build_config, self.state_guess
-            )
-        return self._derivative_twin
+        twin = self._twins.get(variant)
+        if twin is None:
+            with self._twin_lock:
+                twin = self._twins.get(variant)
+                if twin is None:
+                    if _TWIN_BUILD is None:
+                        raise InternalError("no twin build hook registered; import lyacomp first")
+                    twin = _TWIN_BUILD(
+                        self.model, self.tolerances, self._build_config, self.state_guess, variant
+                    )
+                    self._twins[variant] = twin
+        return twin
 
     # -- many parameter sets ----------------------------------------------------------
     def batch(
@@ -796,18 +827,18 @@ class Evaluator:
 
 
 _REBUILD: Callable[..., Evaluator] | None = None
-_DERIVATIVE_BUILD: Callable[..., Evaluator] | None = None
+_TWIN_BUILD: Callable[..., Evaluator] | None = None
 
 
 def register_rebuild(
-    rebuild: Callable[..., Evaluator], derivative_build: Callable[..., Evaluator]
+    rebuild: Callable[..., Evaluator], twin_build: Callable[..., Evaluator]
 ) -> None:
-    """Set how unpickled evaluators are rebuilt and how the derivative entry points are
-    built on first use (the pipeline registers itself on import, so this layer does not
-    import the pipeline back)."""
-    global _REBUILD, _DERIVATIVE_BUILD
+    """Set how unpickled evaluators are rebuilt and how the twin library of another
+    variant is built on first use (the pipeline registers itself on import, so this layer
+    does not import the pipeline back)."""
+    global _REBUILD, _TWIN_BUILD
     _REBUILD = rebuild
-    _DERIVATIVE_BUILD = derivative_build
+    _TWIN_BUILD = twin_build
 
 
 def _restore(

@@ -1,0 +1,123 @@
+"""Cold compile times (issue 11): ``python benchmarks/compile_cold.py [--repeat K] [--ring N]``.
+
+Every measurement runs in a fresh process with a fresh, empty cache directory, so it pays
+for everything a first ``lyacomp.compile`` pays: the compiler probe, the symbolic work,
+rendering and the C compiler. It reports wall and CPU time (this process plus its
+children, i.e. the C compiler) of the whole ``compile`` for M1, M2, M3 and the ring of
+``--ring`` states (M4), then of the first call that needs the twin library (l2, the
+degenerate point and the exact derivatives: ``ev(derivatives=True)``). The machine is
+shared: the CPU column is the one to compare; the load average is printed.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+
+
+def _cpu() -> float:
+    """CPU seconds of this process and its finished children (the C compiler runs)."""
+    own = resource.getrusage(resource.RUSAGE_SELF)
+    kids = resource.getrusage(resource.RUSAGE_CHILDREN)
+    return own.ru_utime + own.ru_stime + kids.ru_utime + kids.ru_stime
+
+
+def _timed(fn):
+    wall, cpu = time.perf_counter(), _cpu()
+    value = fn()
+    return value, time.perf_counter() - wall, _cpu() - cpu
+
+
+def child(path: str) -> None:
+    """One cold compile (run in a fresh process, LYACOMP_CACHE_DIR set by the parent)."""
+    sys.path.insert(0, str(ROOT))
+    import lyacomp
+    from lyacomp.build import toolchain
+    from lyacomp.config import BuildConfig
+
+    model = lyacomp.load_model(path)
+    _, probe_wall, probe_cpu = _timed(lambda: toolchain(BuildConfig.from_environment()))
+    ev, wall, cpu = _timed(lambda: lyacomp.compile(model))
+    ok = bool(ev().ok)
+    twin_wall = twin_cpu = None
+    if ev.bifurcation is not None:
+        _, twin_wall, twin_cpu = _timed(lambda: ev(derivatives=True))
+    print(
+        json.dumps(
+            {
+                "probe_wall": probe_wall,
+                "probe_cpu": probe_cpu,
+                # the whole compile, probe included (lyacomp.compile would run it)
+                "compile_wall": probe_wall + wall,
+                "compile_cpu": probe_cpu + cpu,
+                "twin_wall": twin_wall,
+                "twin_cpu": twin_cpu,
+                "nominal_ok": ok,
+            }
+        )
+    )
+
+
+def _one(path: Path) -> dict:
+    with tempfile.TemporaryDirectory(prefix="lyacomp-cold-") as cache:
+        env = {**os.environ, "LYACOMP_CACHE_DIR": cache}
+        out = subprocess.run(
+            [sys.executable, __file__, "--child", str(path)],
+            env=env,
+            capture_output=True,
+            text=True,
+            check=False,
+        )
+        if out.returncode != 0:
+            raise SystemExit(f"cold compile of {path} failed:\n{out.stderr[-3000:]}")
+        return json.loads(out.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--repeat", type=int, default=1, help="runs per model (min is shown)")
+    parser.add_argument("--ring", type=int, default=32, help="states of the M4 ring (0: skip)")
+    parser.add_argument("--only", nargs="*", help="labels to run (M1 M2 M3 M4)")
+    parser.add_argument("--child", help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        child(args.child)
+        return
+    sys.path.insert(0, str(HERE))
+    from bench_models import model_path
+
+    labels = ["M1", "M2", "M3"] + ([f"M4-{args.ring}"] if args.ring else [])
+    if args.only:
+        labels = [x for x in labels if x.split("-")[0] in args.only]
+    print(f"load average at start: {os.getloadavg()[0]:.2f}")
+    print("| model | compile wall s | compile CPU s | its probe CPU s | twin wall s | twin CPU s |")
+    print("|---|---|---|---|---|---|")
+    with tempfile.TemporaryDirectory(prefix="lyacomp-ring-") as work:
+        for label in labels:
+            runs = [_one(model_path(label, Path(work))) for _ in range(args.repeat)]
+            best = min(runs, key=lambda r: r["compile_cpu"])
+            twin = min(runs, key=lambda r: r["twin_cpu"] or 0.0)
+
+            def fmt(value):
+                return "-" if value is None else f"{value:.2f}"
+
+            print(
+                f"| {label} | {fmt(best['compile_wall'])} | {fmt(best['compile_cpu'])} | "
+                f"{fmt(best['probe_cpu'])} | {fmt(twin['twin_wall'])} | {fmt(twin['twin_cpu'])} |",
+                flush=True,
+            )
+    print(f"load average at end: {os.getloadavg()[0]:.2f}")
+
+
+if __name__ == "__main__":
+    main()
