@@ -5,6 +5,7 @@ delay kernels do not compute yet."""
 
 from __future__ import annotations
 
+import json
 import math
 import re
 from dataclasses import replace
@@ -241,7 +242,8 @@ def test_design_space_on_the_burner_uses_central_differences(burner):
         d1 = (f(x[i] + h) - f(x[i] - h)) / (2 * h)
         d2 = (f(x[i] + h / 2) - f(x[i] - h / 2)) / h
         assert grad[i] == pytest.approx((4 * d2 - d1) / 3, rel=1e-6)
-    with pytest.raises(StudyError, match=r"exact derivatives .* not available for models with"):
+    refused = r"^exact differentiation .* not available .* use gradients='differences'"
+    with pytest.raises(StudyError, match=refused):
         DesignSpace(burner, ["c3"], gradients="exact")
 
 
@@ -260,3 +262,24 @@ def test_refusals_name_what_is_missing(burner):
         burner(derivatives=True)
     with pytest.raises(EvaluationError, match=refused(DELAY_DERIVATIVES)):
         burner.batch({"b": [0.2, 0.3]}, derivatives=True)
+
+
+# --- command line --------------------------------------------------------------------------
+def test_cli_operating_search_and_robustness_on_the_burner(burner, capsys):
+    from lyacomp.cli import main
+
+    assert main(["eval", str(BURNER), "--operating", "0.3", "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    # the same keys as for ODE models, and the Hopf point of the guess-based search
+    assert data["search"]["method"] == "operating" and data["search"]["direction"] == "up"
+    assert data["critical_value"] == pytest.approx(burner().critical_value, rel=1e-12)
+    assert data["search"]["loss_value"] == data["critical_value"]
+    assert data["criticality"] == "supercritical" and data["unstable_count"] == 0
+    assert main(["eval", str(BURNER), "--operating", "0.3"]) == 0
+    assert "first loses stability at g_c = 0.63" in capsys.readouterr().out
+    args = ["robustness", str(BURNER), "--samples", "200", "--seed", "4", "--threads", "1"]
+    assert main(args) == 0
+    assert f"no reliability index: {DELAY_FORM_NOTE}" in capsys.readouterr().out
+    assert main([*args, "--json"]) == 0
+    data = json.loads(capsys.readouterr().out)
+    assert data["reliability_index"] is None and data["off_branch"] == 0

@@ -122,7 +122,7 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
 #: What delay kernels do not compute yet (the refusals of ``delay_refusal``).
 DELAY_L2 = "the second Lyapunov coefficient"
 DELAY_DEGENERATE = "the degenerate point"
-DELAY_DERIVATIVES = "exact derivatives (derivatives=True)"
+DELAY_DERIVATIVES = "exact differentiation (derivatives=True)"
 
 
 def delay_refusal(what: str) -> EvaluationError:
