@@ -157,10 +157,17 @@ def _simulation_line(check: Any, seconds: float) -> str:
     head = f"at {check.bifurcation} = {check.value:.5g} ({seconds:.2f} s): "
     if check.measured is not None:
         j = max(range(len(check.state_names)), key=lambda k: check.predicted_amplitude[k])
-        return head + (
+        line = (
             f"{check.state_names[j]} amplitude measured {check.measured.amplitude[j]:.4g} vs "
             f"predicted {check.predicted_amplitude[j]:.4g} "
-            f"({100 * check.amplitude_error[j]:+.1f}%); period {check.measured.period:.4g} vs "
+            f"({100 * check.amplitude_error[j]:+.1f}% raw"
+        )
+        onset_error = check.onset_amplitude_error
+        if onset_error is not None:
+            # The verdict compares the value extrapolated to onset, so the line shows it too.
+            line += f", {100 * onset_error[j]:+.1f}% extrapolated to onset"
+        return head + (
+            f"{line}); period {check.measured.period:.4g} vs "
             f"{check.predicted_period:.4g}; {'agrees' if check.agrees else 'DOES NOT AGREE'}"
         )
     runs = ", ".join(f"{r.label}: {r.outcome}" for r in check.runs)
