@@ -126,7 +126,7 @@ def scaling_table(scaling: dict) -> str:
 
 def targets_table(targets: list[dict]) -> str:
     rows = [[t["target"], t["measured"], "met" if t["met"] else "MISSED"] for t in targets]
-    return _table(["target (issue 4)", "measured", ""], rows)
+    return _table(["target (issues 4 and 11)", "measured", ""], rows)
 
 
 def markdown(results: dict, agree_tol: float) -> str:
