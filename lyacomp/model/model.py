@@ -51,7 +51,7 @@ def search_direction(direction: str | None, guess: float, operating: float) -> i
 
 @dataclass(frozen=True)
 class SymbolicModel:
-    """The model as sympy objects, definitions substituted.
+    """The model as sympy objects, definitions substituted (``rhs``) and kept (``chain_rhs``).
 
     Symbols carry the user's names verbatim (they may be ``lambda`` or ``E``);
     lambdify with ``dummify=True``.
@@ -67,6 +67,14 @@ class SymbolicModel:
     """The distinct delays ``tau_k`` (expressions of the parameters), empty for an ODE."""
     lagged: tuple[tuple[sp.Symbol, ...], ...] = ()
     """``lagged[k][j]`` is the symbol in ``rhs`` that stands for state j at ``t - tau_k``."""
+    definitions: tuple[tuple[sp.Symbol, sp.Expr], ...] = ()
+    """``(symbol, expression)`` per definition in dependency order; an expression uses
+    states, lagged states, parameters and the symbols of earlier definitions (the symbol
+    of definition ``d`` is named ``"d(definition)"``, so it never meets a user name).
+    The derivation differentiates through them by the chain rule (``derive/chain.py``)."""
+    chain_rhs: tuple[sp.Expr, ...] = ()
+    """The equations over the definition symbols (empty for a model without definitions);
+    substituting the definitions gives ``rhs``."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -271,16 +279,23 @@ class Model:
             for n, v in self.definitions.items()
         }
         resolved = _resolve_definitions(raw_defs, defs, src)
+        # The resolved table is in dependency order; the kept definitions follow it.
+        named = {d: sp.Symbol(f"{n}(definition)", real=True) for n, d in defs.items()}
+        name_of = {d: n for n, d in defs.items()}
 
         def subst(expr: sp.Expr) -> sp.Expr:
             return expr.xreplace(resolved) if resolved else expr
 
-        rhs = tuple(
-            subst(self._parse(self.equations[n], names, f"{src}: [equations] {n}", lags))
+        raw_rhs = tuple(
+            self._parse(self.equations[n], names, f"{src}: [equations] {n}", lags)
             for n in self.states
         )
+        rhs = tuple(subst(e) for e in raw_rhs)
         delays, placeholders = lags.finish(subst, params, self.nominal, src)
         rhs = tuple(e.xreplace(placeholders) for e in rhs)
+        kept = {**named, **placeholders}
+        definitions = tuple((named[d], raw_defs[name_of[d]].xreplace(kept)) for d in resolved)
+        chain_rhs = tuple(e.xreplace(kept) for e in raw_rhs) if definitions else ()
         lagged = tuple(tuple(lag_symbol(n, k) for n in self.states) for k in range(len(delays)))
         bif = params[self.bifurcation] if self.bifurcation else None
         crit = None
@@ -302,7 +317,16 @@ class Model:
             if expr.has(sp.zoo, sp.nan, sp.oo, -sp.oo):
                 raise ModelError(f"{src}: {where} simplifies to an infinite or undefined value")
         return SymbolicModel(
-            tuple(states.values()), tuple(params.values()), rhs, bif, crit, eq, delays, lagged
+            tuple(states.values()),
+            tuple(params.values()),
+            rhs,
+            bif,
+            crit,
+            eq,
+            delays,
+            lagged,
+            definitions,
+            chain_rhs,
         )
 
     # -- public views -----------------------------------------------------------------
@@ -343,13 +367,15 @@ class Model:
             "name": self.name,
             "states": list(self.states.items()),
             "parameters": list(self.nominal.items()),
-            "rhs": [sp.srepr(e) for e in sym.rhs],
+            "rhs": [sp.srepr(e) for e in sym.chain_rhs or sym.rhs],
             "bifurcation": self.bifurcation,
             "critical_value": sp.srepr(sym.critical_value)
             if sym.critical_value is not None
             else None,
             "equilibrium": [sp.srepr(e) for e in sym.equilibrium] if sym.equilibrium else None,
         }
+        if sym.definitions:  # kept, not substituted: the substituted text can be huge
+            doc["definitions"] = [[str(s), sp.srepr(e)] for s, e in sym.definitions]
         if sym.delays:  # absent for ODE models, whose keys stay as they were
             doc["delays"] = [sp.srepr(d) for d in sym.delays]
         return json.dumps(doc, sort_keys=True)
