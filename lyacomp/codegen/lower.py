@@ -14,6 +14,8 @@ from dataclasses import dataclass
 import sympy as sp
 
 from ..derive import Derivatives
+from ..derive.chain import DefinitionChain
+from .intermediates import straight_line
 from .printer import ccode
 
 
@@ -72,11 +74,21 @@ class Lowered:
 
 
 def lower_block(
-    assignments: list[tuple[str, sp.Expr]], subs: dict[sp.Symbol, sp.Symbol], temp_prefix: str
+    assignments: list[tuple[str, sp.Expr]],
+    subs: dict[sp.Symbol, sp.Symbol],
+    temp_prefix: str,
+    chain: DefinitionChain | None = None,
 ) -> Block:
-    """CSE over all assignments together, then print to C."""
+    """CSE over all assignments together, then print to C; with definitions (``chain``)
+    the intermediates the assignments use come first (``intermediates.py``)."""
     if not assignments:
         return Block((), ())
+    if chain is not None:
+        temps, codes = straight_line([e for _, e in assignments], subs, temp_prefix, chain)
+        return Block(
+            tuple(Statement(name, code) for name, code in temps),
+            tuple(Statement(target, code) for (target, _), code in zip(assignments, codes)),
+        )
     exprs = [expr.xreplace(subs) for _, expr in assignments]
     temps_sym = sp.numbered_symbols(temp_prefix)
     replacements, reduced = sp.cse(exprs, symbols=temps_sym)
@@ -108,7 +120,8 @@ def lower(der: Derivatives) -> Lowered:
         subs[s] = sp.Symbol(f"p[{k}]", real=True)
     bif_index = model.parameters.index(model.bifurcation) if model.bifurcation is not None else -1
 
-    rhs_assign = [(f"f[{i}]", e) for i, e in enumerate(model.rhs)]
+    chain = der.chain
+    rhs_assign = [(f"f[{i}]", e) for i, e in enumerate(der.equations)]
     jac_assign = [(f"jac[{i * ns + j}]", e) for (i, j), e in sorted(der.jacobian.items())]
     mu_assign = [(f"f_mu[{i}]", e) for i, e in sorted(der.f_mu.items())]
     mu_assign += [(f"j_mu[{i * ns + j}]", e) for (i, j), e in sorted(der.j_mu.items())]
@@ -117,15 +130,15 @@ def lower(der: Derivatives) -> Lowered:
     second_assign = [(f"d2[{k}]", der.second[key]) for k, key in enumerate(second_keys)]
     # One CSE pass per set of quantities needed together, so that expensive functions
     # (exp, tanh, ...) shared by F and its derivatives are evaluated once.
-    f_jac = lower_block(rhs_assign + jac_assign, subs, "t")
+    f_jac = lower_block(rhs_assign + jac_assign, subs, "t", chain)
     solves_mu = model.bifurcation is not None and model.critical_value is None
     linear = (
-        lower_block(rhs_assign + jac_assign + second_assign + mu_assign, subs, "t")
+        lower_block(rhs_assign + jac_assign + second_assign + mu_assign, subs, "t", chain)
         if solves_mu
         else None
     )
     third_assign = [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)]
-    curvature = lower_block(second_assign + third_assign + mu_assign, subs, "t")
+    curvature = lower_block(second_assign + third_assign + mu_assign, subs, "t", chain)
 
     b_form = []
     hess_dir = []

@@ -138,7 +138,7 @@ def lower_higher(high: HigherDerivatives) -> LoweredHigher:
     if missing:
         raise InternalError(f"the l2 recipe uses vectors the kernel lacks: {sorted(missing)}")
     return LoweredHigher(
-        derivatives=lower_block(assign, subs, "t"),
+        derivatives=lower_block(assign, subs, "t", der.chain),
         n_fourth=len(fourth_keys),
         n_fifth=len(fifth_keys),
         d_form=_symmetric(fourth_keys, 4),

@@ -70,7 +70,7 @@ def lower_sensitivity(der: Derivatives, sens: SensitivityDerivatives) -> Sensiti
     assign += [(f"d2p[{k * n2 + e}]", v) for (k, e), v in sorted(sens.second_p.items())]
     assign += [(f"d3p[{k * n3 + e}]", v) for (k, e), v in sorted(sens.third_p.items())]
     assign += [(f"d4[{e}]", sens.fourth[key]) for e, key in enumerate(fourth_keys)]
-    terms = lower_block(assign, subs, "t")
+    terms = lower_block(assign, subs, "t", der.chain)
     return SensitivityLowered(
         terms=terms,
         n_fourth=len(fourth_keys),

@@ -12,7 +12,8 @@ from dataclasses import dataclass
 
 import sympy as sp
 
-from .derivatives import Derivatives, Index2, Index3, Index4, _diff
+from .chain import DefinitionChain
+from .derivatives import Derivatives, Index2, Index3, Index4, _depends, _diff
 
 Index5 = tuple[int, int, int, int, int]
 
@@ -34,10 +35,13 @@ class SensitivityDerivatives:
     fourth: dict[Index5, sp.Expr]
 
 
-def _nonzero(expr: sp.Expr, var: sp.Symbol, what: str) -> sp.Expr | None:
-    if var not in expr.free_symbols:
+def _nonzero(
+    expr: sp.Expr, var: sp.Symbol, what: str, chain: DefinitionChain | None = None
+) -> sp.Expr | None:
+    # ``chain``: the definitions' chain rule (derive/chain.py), None without definitions.
+    if not _depends(expr, var, chain):
         return None
-    d = _diff(expr, var, what)
+    d = _diff(expr, var, what, chain)
     return None if d == 0 else d
 
 
@@ -53,26 +57,26 @@ def derive_sensitivity(der: Derivatives) -> SensitivityDerivatives:
     second_keys: list[Index3] = sorted(der.second)
     third_keys: list[Index4] = sorted(der.third)
     for k, par in enumerate(model.parameters):
-        for i, f in enumerate(model.rhs):
-            d = _nonzero(f, par, f"equation {i}")
+        for i, f in enumerate(der.equations):
+            d = _nonzero(f, par, f"equation {i}", der.chain)
             if d is not None:
                 f_p[(k, i)] = d
         for (i, j), a in sorted(der.jacobian.items()):
-            d = _nonzero(a, par, f"Jacobian entry ({i}, {j})")
+            d = _nonzero(a, par, f"Jacobian entry ({i}, {j})", der.chain)
             if d is not None:
                 j_p[(k, i, j)] = d
         for e, key in enumerate(second_keys):
-            d = _nonzero(der.second[key], par, f"equation {key[0]}")
+            d = _nonzero(der.second[key], par, f"equation {key[0]}", der.chain)
             if d is not None:
                 second_p[(k, e)] = d
         for e, key in enumerate(third_keys):
-            d = _nonzero(der.third[key], par, f"equation {key[0]}")
+            d = _nonzero(der.third[key], par, f"equation {key[0]}", der.chain)
             if d is not None:
                 third_p[(k, e)] = d
     fourth: dict[Index5, sp.Expr] = {}
     for key, d3 in sorted(der.third.items()):
         for m in range(key[3], n):
-            d = _nonzero(d3, xs[m], f"equation {key[0]}")
+            d = _nonzero(d3, xs[m], f"equation {key[0]}", der.chain)
             if d is not None:
                 fourth[(*key, m)] = d
     return SensitivityDerivatives(f_p, j_p, second_p, third_p, fourth)
