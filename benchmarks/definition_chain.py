@@ -3,10 +3,11 @@
 For chains of 5, 10, 20 and 30 definitions (an invented two-state model, the same family as
 tests/test_definition_chain.py) it prints, measured in this run:
 
-- the symbolic part of the plain compile (derive + lower) and of the l2 part (fourth and
-  fifth derivatives), wall and CPU seconds;
-- a cold ``lyacomp.compile`` into an empty cache, wall and CPU seconds (CPU includes the C
-  compiler's child processes);
+- the symbolic part of the plain compile (derive + lower) and of the extended library's
+  extra stages (fourth and fifth derivatives for l2, the exact parameter derivatives),
+  wall and CPU seconds;
+- a cold ``lyacomp.compile`` (the plain library) into an empty cache, wall and CPU seconds
+  (CPU includes the C compiler's child processes);
 - the static operation count of the plain model functions (``f_jac``, ``linear``,
   ``curvature``: binary + - * / and calls, counted in the emitted C);
 - the batch evaluation time per sample on one thread (CPU time) and that time per operation,
@@ -33,10 +34,10 @@ from pathlib import Path
 import numpy as np
 
 import lyacomp
-from lyacomp.codegen import lower
+from lyacomp.codegen import lower, lower_sensitivity
 from lyacomp.codegen.lower_higher import lower_higher
 from lyacomp.config import BuildConfig
-from lyacomp.derive import derive
+from lyacomp.derive import derive, derive_sensitivity
 from lyacomp.derive.higher import derive_higher
 
 FUNCTIONS = ("tanh(a*{})", "sin({} + b)", "exp(-{}**2/2)")
@@ -90,8 +91,10 @@ def _plain_symbolic(model: lyacomp.Model):
     return lower(derive(model.symbolic()))
 
 
-def _l2_symbolic(model: lyacomp.Model) -> None:
-    lower_higher(derive_higher(derive(model.symbolic())))
+def _extended_symbolic(model: lyacomp.Model) -> None:
+    der = derive(model.symbolic())
+    lower_higher(derive_higher(der))
+    lower_sensitivity(der, derive_sensitivity(der))
 
 
 def _pasted_seconds(levels: int, limit: float) -> tuple[float, float] | None:
@@ -141,7 +144,7 @@ def main() -> None:
     for levels in args.levels:
         model = chain_model(levels)
         low, wall_plain, cpu_plain = _times(_plain_symbolic, model)
-        _, wall_l2, cpu_l2 = _times(_l2_symbolic, model)
+        _, wall_ext, cpu_ext = _times(_extended_symbolic, model)
         with tempfile.TemporaryDirectory() as cache:
             config = replace(BuildConfig.from_environment(), cache_dir=Path(cache))
             ev, wall_compile, cpu_compile = _times(_cold_compile, model, config)
@@ -152,8 +155,8 @@ def main() -> None:
         base_per_op = base_per_op or per_op
         print(
             f"chain {levels:2d}: plain symbolic {wall_plain:6.2f} s wall / {cpu_plain:6.2f} s CPU;"
-            f" l2 symbolic {wall_l2:6.2f} / {cpu_l2:6.2f} s; cold compile {wall_compile:6.1f} s"
-            f" wall / {cpu_compile:6.1f} s CPU"
+            f" extended stages {wall_ext:6.2f} / {cpu_ext:6.2f} s;"
+            f" cold compile {wall_compile:6.1f} s wall / {cpu_compile:6.1f} s CPU"
         )
         print(
             f"          ops f_jac {ops[0]}, linear {ops[1]}, curvature {ops[2]};"
