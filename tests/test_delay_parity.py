@@ -105,6 +105,10 @@ def test_delay_as_the_bifurcation_parameter():
     guess = ev(search="guess")
     assert guess.critical_value == pytest.approx(res.critical_value, rel=1e-12)
     assert guess.l1 == pytest.approx(res.l1, rel=1e-9)
+    # Downward the equilibrium stays stable (down to tau = 0, where lambda = b - a < 0) until
+    # the delay itself reaches zero: the branch of the delay model ends there.
+    down = ev(tau=0.1)  # a guess below the operating value: the search goes down
+    assert down.search.direction == "down" and down.status == "nonpositive_delay"
 
 
 def test_real_root_crossing_is_reported_as_such():
@@ -129,6 +133,27 @@ def test_real_root_crossing_is_reported_as_such():
     batch = ev.batch({"tau": [0.5, 0.9]}, operating=0.0)
     assert list(batch.status_labels()) == ["real_eigenvalue_crossing"] * 2
     assert batch.loss_value == pytest.approx([1.0, 1.0], abs=1e-12)
+
+
+def test_real_crossing_at_a_fold_of_the_delay_branch():
+    # x' = mu - x^2 - x(t - tau): equilibria mu = x^2 + x, a fold at x = -1/2, mu = -1/4.
+    # There lambda = -2 x - e^{-lambda tau} has the root 0 (det Delta(0) = 2 x + 1), and with
+    # tau = 0.5 no pair can cross (omega = sin(omega tau) has no root omega > 0 for tau <= 1,
+    # as above; common practice, no source). Going down from mu = 2 (x = 1, stable) the
+    # search must turn with the branch and stop at the fold.
+    model = lyacomp.Model(
+        name="delayed fold",
+        states={"x": 1.0},
+        parameters={"mu": 2.0, "tau": 0.5},
+        equations={"x": "mu - x**2 - x(t - tau)"},
+        bifurcation="mu",
+        operating=2.0,
+        direction="down",
+    )
+    res = lyacomp.compile(model)()
+    assert res.status == "real_eigenvalue_crossing"
+    assert res.search.direction == "down"
+    assert res.search.loss_value == pytest.approx(-0.25, abs=1e-6)
 
 
 def test_burner_operating_search_agrees_with_the_guess_search(burner):
