@@ -159,7 +159,7 @@ def count_kernel(
     import lyacomp
 
     model, prefix = ev.model, prefix_of(ev)
-    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h")
+    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h", variant="plain")
     calls = [f"-DEVALUATE_ARGS={_c_arguments(ev, f'{prefix}_evaluate', 'row')}"]
     if "start" in argument_roles(ev, f"{prefix}_evaluate"):
         prepare = _c_arguments(ev, f"{prefix}_prepare_start", "nominal")
@@ -274,7 +274,7 @@ def count_executed(ev, samples: np.ndarray, flags: list[str], compiler: list[str
     import lyacomp
 
     model, prefix = ev.model, prefix_of(ev)
-    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h")
+    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h", variant="plain")
     own = [f for f in flags if f not in ("-fPIC", "-DLYACOMP_MVEC", "-fopenmp")]
     defines = [f"-DPREFIX={prefix}", "-DBATCH", "-I."]
     defines.append(f"-DEVALUATE_ARGS={_c_arguments(ev, f'{prefix}_evaluate', 'row')}")

@@ -89,7 +89,7 @@ def fallbacks(label: str, count: int) -> int:
     model = lyacomp.load_model(MODEL_DIR / FILES[label])
     ev = lyacomp.compile(model)
     prefix = prefix_of(ev)
-    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h")
+    sources = lyacomp.generate(model, prefix=prefix, header_name="model.h", variant="plain")
     samples = draw_samples(model, count, seed=11)
     command, flags, _ = peak.toolchain_flags()
     defines = [f"-DPREFIX={prefix}", "-DBATCH", "-I."]
