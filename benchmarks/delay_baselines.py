@@ -16,6 +16,13 @@ null space of ``Delta(i omega)^H`` with ``<p, Delta'(i omega) q> = 1``, and
 
 ``l1 = Re c1 / omega``; ``d = Re <p, J_mu Q + B(E(0) x0', Q) - i omega sum tau_k' e^{-i omega
 tau_k} A_k q>`` with ``x0' = Delta(0)^-1 F_mu``; amplitudes ``2 |q_j| sqrt(|d / (omega l1)|)``.
+
+The stability context is the same count as the compiled kernel's (templates/delay_roots.c.j2,
+count_beside_pair): the argument principle for g = det Delta / (lambda^2 + omega^2) on the
+lines Re lambda = +-band, steps h_max = min(Y / 16, 0.5 / tau_max) halved where a step
+turns the phase by more than 0.5 rad or disagrees with the trapezoidal integral of
+Re g'/g, and the exact tail beyond Y = max(1.01 R / sin(pi / (4 n)), 2 omega). A sample
+is ok when both lines give the same count (no other root within the band).
 """
 
 from __future__ import annotations
@@ -30,6 +37,64 @@ from b1_numpy import Packed
 
 NEWTON_MAX_STEPS = 40
 NEWTON_TOL = 1e-13
+AXIS_TOL = 1e-8  # the band of the imaginary axis, relative to the rate (the kernel's default)
+MAX_HALVINGS = 40
+
+
+def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndarray):
+    """Roots of g = det Delta / (lambda^2 + omega^2) right of Re lambda = s per sample
+    (-1: not resolved, a root on the line). A is (N, m+1, n, n), tau (N, m)."""
+    N, _, n, _ = A.shape
+    damp = np.exp(-s[:, None] * tau)  # |exp(-lambda tau_k)| on the line
+    size = np.abs(A[:, 0]) + np.einsum("nk,nkij->nij", damp, np.abs(A[:, 1:]))
+    bound = np.abs(s) + size.sum(axis=2).max(axis=1)
+    y_end = np.maximum(1.01 * bound / np.sin(np.pi / (4 * n)), 2 * omega)
+    h_max = np.minimum(y_end / 16, 0.5 / tau.max(axis=1))
+    counts = np.full(N, -1)
+    todo = np.arange(N)
+    eye = np.eye(n)
+    ng = n - 2
+    for halving in range(MAX_HALVINGS):
+        if len(todo) == 0:
+            break
+        h = h_max[todo] / 2.0**halving
+        steps = int(np.ceil(np.max(y_end[todo] / h)))
+        lam = s[todo, None] + 1j * h[:, None] * np.arange(steps + 1)  # (T, J+1)
+        e = np.exp(-lam[:, :, None] * tau[todo, None, :])  # (T, J+1, m)
+        blocks = A[todo, 1:]
+        delta = lam[..., None, None] * eye - A[todo, None, 0]
+        delta = delta - np.einsum("tjk,tkab->tjab", e, blocks)
+        dprime = eye + np.einsum("tjk,tk,tkab->tjab", e, tau[todo], blocks)
+        det = np.linalg.det(delta)
+        log_d = np.trace(np.linalg.solve(delta, dprime), axis1=2, axis2=3)
+        pair = lam**2 + omega[todo, None] ** 2
+        g = det / pair
+        ratio = (log_d - 2 * lam / pair).real
+        turn = np.angle(g[:, 1:] / g[:, :-1])
+        predicted = 0.5 * h[:, None] * (ratio[:, 1:] + ratio[:, :-1])
+        smooth = np.all(
+            (np.abs(turn) <= 0.5) & (np.abs(turn - predicted) <= 0.05 + 0.1 * np.abs(turn)),
+            axis=1,
+        )
+        at_end = np.arctan2(h * steps, s[todo])
+        turned = turn.sum(axis=1) + ng * (np.pi / 2 - at_end)
+        turned -= np.angle(g[:, -1] * np.exp(-1j * ng * at_end))
+        count = 0.5 * (ng - 2 * turned / np.pi)
+        whole = np.round(count)
+        good = smooth & (np.abs(count - whole) < 0.25)
+        counts[todo[good]] = whole[good]
+        todo = todo[~smooth]
+    return counts
+
+
+def unstable_count(A: np.ndarray, tau: np.ndarray, omega: np.ndarray) -> np.ndarray:
+    """Roots right of the imaginary axis besides the pair +-i omega (-1 where another root
+    lies within the band of the axis or the count is not resolved)."""
+    norms = np.sqrt(np.einsum("nkij,nkij->n", A, A))
+    band = AXIS_TOL * np.maximum(norms, omega)
+    right = _count_on_line(A, tau, omega, band)
+    wide = _count_on_line(A, tau, omega, -band)
+    return np.where((right >= 0) & (right == wide), right, -1)
 
 
 @dataclass(frozen=True)
@@ -190,9 +255,11 @@ class VectorizedDelayHopf:
             "transversality": np.full(N, np.nan),
             "equilibrium": np.full((N, n), np.nan),
             "amplitude": np.full((N, n), np.nan),
+            "unstable_count": np.full(N, -1),
         }
         for key, value in self._quantities(z[ok], p[ok]).items():
             out[key][ok] = value
+        out["ok"] = ok & (out["unstable_count"] >= 0)
         return out
 
     def _quantities(self, z: np.ndarray, p: np.ndarray) -> dict[str, np.ndarray]:
@@ -260,6 +327,7 @@ class VectorizedDelayHopf:
         trans = lam_mu.real
         amp = 2 * np.abs(q) * np.sqrt(np.abs(trans / (omega * l1)))[:, None]
         return {
+            "unstable_count": unstable_count(A, tau, omega),
             "l1": l1,
             "omega": omega,
             "critical_value": z[:, n],
@@ -356,8 +424,10 @@ class LoopDelayHopf:
         rot = sum(tau_mu[k] * np.exp(-iw * tau[k]) * (A[k + 1] @ q) for k in range(m))
         jq = np.array(self.J_mu(*args), dtype=float) @ Q
         trans = np.vdot(pv, jq + B(stack(dx, 0.0), Q) - iw * rot).real
+        count = int(unstable_count(A[None], tau[None], np.array([omega]))[0])
         return {
-            "ok": True,
+            "ok": count >= 0,
+            "unstable_count": count,
             "l1": l1,
             "omega": omega,
             "critical_value": z[n],
@@ -376,6 +446,7 @@ class LoopDelayHopf:
             "transversality": np.full(N, np.nan),
             "equilibrium": np.full((N, n), np.nan),
             "amplitude": np.full((N, n), np.nan),
+            "unstable_count": np.full(N, -1),
         }
         for i in range(N):
             r = self.solve_one(params[i])

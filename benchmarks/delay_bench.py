@@ -6,9 +6,13 @@ Three evaluators of the same math in the same run, on the same samples:
 
 - compiled: ``Evaluator.batch(..., threads=1)``;
 - numpy: delay_baselines.VectorizedDelayHopf (Newton on the augmented Hopf system
-  vectorized over samples, batched linear algebra);
+  vectorized over samples, batched linear algebra, the root count of the stability
+  context on grids vectorized over samples);
 - scipy loop: delay_baselines.LoopDelayHopf (``scipy.optimize.fsolve`` per sample, then
-  numpy linear algebra per sample).
+  numpy linear algebra and the same root count per sample).
+
+All three compute l1, the transversality, amplitudes and the number of characteristic
+roots right of the imaginary axis (the same argument-principle count).
 
 Each baseline starts from the nominal Hopf point (solved once, outside the timing), as the
 compiled evaluator does. Reports samples per second by wall and by CPU time (median over
@@ -126,8 +130,14 @@ def main() -> None:
             a, b = np.asarray(a)[:count], np.asarray(other[key])
             both = np.isfinite(a) & np.isfinite(b)
             worst = max(worst, float(np.max(np.abs(a[both] - b[both]) / (1 + np.abs(b[both])))))
-        agree = int(np.sum(other["ok"] & ours.ok[:count]))
-        print(f"{label}: {agree} of {count} samples ok in both; largest disagreement {worst:.2e}")
+        both_ok = other["ok"] & ours.ok[:count]
+        same_count = int(
+            np.sum(other["unstable_count"][both_ok] == ours.unstable_count[:count][both_ok])
+        )
+        print(
+            f"{label}: {int(both_ok.sum())} of {count} samples ok in both; largest disagreement "
+            f"{worst:.2e}; unstable root count equal on {same_count}"
+        )
 
     print(f"\n{'evaluator':<12}{'samples':>9}{'wall /s':>14}{'CPU /s':>14}{'cores used':>12}")
     for label, r in rates.items():

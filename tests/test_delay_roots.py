@@ -1,0 +1,145 @@
+"""The stability context of delay models (roots of det Delta right of the imaginary axis,
+besides the critical pair) against counts made without lyacomp: the closed-form roots of
+Wright's characteristic equation (Lambert W, mpmath) and a Chebyshev collocation of the
+generator of the solution semigroup (numpy eigenvalues)."""
+
+from __future__ import annotations
+
+import math
+
+import mpmath
+import numpy as np
+import pytest
+
+import lyacomp
+from tests.delay_models import random_delay_model
+
+PI = math.pi
+
+
+def collocation_roots(blocks: list[np.ndarray], taus: list[float], points: int) -> np.ndarray:
+    """Eigenvalues of the Chebyshev collocation of the infinitesimal generator on
+    [-tau_max, 0] (Breda, Maset & Vermiglio, SIAM J. Sci. Comput. 27, 2005; the
+    differentiation matrix of Trefethen, Spectral Methods in MATLAB, SIAM 2000, cheb.m).
+    Rows 1..M: d/dtheta at the nodes; row 0: the equation A0 u(0) + sum_k A_k u(-tau_k),
+    u(-tau_k) by barycentric interpolation when -tau_k is not a node."""
+    n, tau_max = blocks[0].shape[0], max(taus)
+    k = np.arange(points + 1)
+    nodes = np.cos(PI * k / points)  # x_0 = 1 (theta = 0) ... x_M = -1 (theta = -tau_max)
+    c = np.where((k == 0) | (k == points), 2.0, 1.0) * (-1.0) ** k
+    dmat = np.outer(c, 1.0 / c) / (nodes[:, None] - nodes[None, :] + np.eye(points + 1))
+    dmat -= np.diag(dmat.sum(axis=1))
+    dmat *= 2.0 / tau_max
+    weights = (-1.0) ** k * np.where((k == 0) | (k == points), 0.5, 1.0)
+    gen = np.zeros((n * (points + 1), n * (points + 1)))
+    gen[:n, :n] += blocks[0]
+    for a_k, tau in zip(blocks[1:], taus, strict=True):
+        x = 2.0 * (-tau) / tau_max + 1.0
+        hit = np.abs(x - nodes) < 1e-14
+        if hit.any():
+            row = hit.astype(float)
+        else:
+            w = weights / (x - nodes)
+            row = w / w.sum()
+        gen[:n, :] += np.kron(row[None, :], a_k)
+    gen[n:, :] = np.kron(dmat[1:, :], np.eye(n))
+    return np.linalg.eigvals(gen)
+
+
+def collocation_count(blocks, taus, points: int = 200, threshold: float = 1e-6) -> int:
+    """Roots with Re > threshold, checked to be the same with a quarter more nodes (the
+    rightmost roots converge spectrally; a count that moves is not resolved)."""
+    counts = [
+        int(np.sum(collocation_roots(blocks, taus, m).real > threshold))
+        for m in (points, points + points // 4)
+    ]
+    assert counts[0] == counts[1], counts
+    return counts[0]
+
+
+# --- Wright's equation x'(t) = -r x(t - 1) (1 + x(t)) -----------------------------------------
+# Characteristic equation lambda + r exp(-lambda) = 0, i.e. lambda exp(lambda) = -r, whose roots
+# are the branches W_j(-r) of the Lambert W function (common practice, no source; Corless et
+# al., Adv. Comput. Math. 5, 1996, for W). The pair i omega, omega = pi/2 + 2 pi k, is on the
+# axis at r = omega; the other branches give the unstable count directly.
+def _wright_count(r: float) -> int:
+    mpmath.mp.dps = 30
+    count = 0
+    for j in range(-40, 41):
+        root = mpmath.lambertw(-r, j)
+        assert abs(root * mpmath.exp(root) + r) < 1e-20 * r
+        if root.real > 1e-12:
+            count += 1
+    return count
+
+
+@pytest.fixture(scope="module")
+def wright_point() -> lyacomp.Evaluator:
+    # No bifurcation parameter: the point itself is classified (it is a Hopf point).
+    model = lyacomp.Model(
+        name="wright fixed",
+        states={"x": 0.0},
+        parameters={"r": 1.5},
+        equations={"x": "-r * x(t - 1) * (1 + x)"},
+    )
+    return lyacomp.compile(model)
+
+
+@pytest.mark.parametrize("crossing", [0, 1, 2, 3, 5])
+def test_wright_equation_at_its_crossings(wright_point, crossing):
+    # At r = pi/2 + 2 pi k the k-th pair is on the axis and 2 k roots lie right of it (each
+    # earlier crossing moved a pair to the right).
+    r = PI / 2 + 2 * PI * crossing
+    expected = _wright_count(r)
+    assert expected == 2 * crossing  # the closed form agrees with the crossing picture
+    res = wright_point(r=r)
+    assert res.status == "ok" and math.isclose(res.omega, r, rel_tol=1e-12)
+    assert res.unstable_count == expected
+    blocks = [np.zeros((1, 1)), np.array([[-r]])]
+    assert collocation_count(blocks, [1.0]) == expected
+
+
+def test_wright_equation_with_the_delay_as_bifurcation_parameter_just_above_the_onset():
+    # r slightly above pi/2 with tau free: onset at tau = pi / (2 r) < 1, stable before it
+    # (the scaled equation lambda + r tau exp(-lambda) = 0 at r tau = pi/2).
+    r = PI / 2 * (1 + 1e-3)
+    model = lyacomp.Model(
+        name="wright tau free",
+        states={"x": 0.0},
+        parameters={"r": r, "tau": 0.9},
+        equations={"x": "-r * x(t - tau) * (1 + x)"},
+        bifurcation="tau",
+    )
+    res = lyacomp.compile(model)()
+    assert res.status == "ok" and math.isclose(res.critical_value, PI / (2 * r), rel_tol=1e-12)
+    assert res.unstable_count == 0 == _wright_count(r * res.critical_value * (1 - 1e-9))
+
+
+# --- random models, also with many unstable roots ----------------------------------------------
+@pytest.mark.parametrize("n", [2, 3])
+def test_unstable_counts_of_random_models_with_long_delays(n):
+    # The constructed models keep the root i omega when tau1 grows by whole periods
+    # 2 pi / omega (exp(-i omega tau_k) unchanged), and the longer delays put more roots
+    # right of the axis: the counts are compared with the collocation at 200 and 250 nodes.
+    counts = []
+    for seed in range(30, 34):
+        rm = random_delay_model(seed, n, seed % 2 == 0)
+        ev = lyacomp.compile(
+            lyacomp.Model(
+                name=f"count {seed}",
+                states={s: 0.0 for s in rm.states},
+                parameters=rm.params,
+                equations=rm.equations,
+            )
+        )
+        for periods in (0, 1, 2, 4):
+            tau1 = rm.params["tau1"] + periods * 2 * PI / rm.omega
+            res = ev(tau1=tau1)
+            taus = [tau1] + ([tau1 + rm.params["dt"]] if "dt" in rm.params else [])
+            expected = collocation_count(rm.blocks, taus)
+            assert res.status == "ok", (seed, periods)
+            assert math.isclose(res.omega, rm.omega, rel_tol=1e-10), (seed, periods)
+            assert res.unstable_count == expected, (seed, periods)
+            counts.append(expected)
+    print(counts)
+    assert max(counts) >= 6 and len(set(counts)) > 3
