@@ -21,7 +21,7 @@ The stability context is the same count as the compiled kernel's (templates/dela
 count_beside_pair): the argument principle for g = det Delta / (lambda^2 + omega^2) on the
 lines Re lambda = +-band, steps h_max = min(Y / 16, 0.5 / tau_max) halved where a step
 turns the phase by more than 0.5 rad or disagrees with the trapezoidal integral of
-Re g'/g, and the exact tail beyond Y = max(1.01 R / sin(pi / (4 n)), 2 omega). A sample
+Re g'/g, and the exact tail beyond Y = 1.01 max(R, omega) / sin(0.8 pi / (n + 1)). A sample
 is ok when both lines give the same count (no other root within the band).
 """
 
@@ -48,7 +48,7 @@ def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndar
     damp = np.exp(-s[:, None] * tau)  # |exp(-lambda tau_k)| on the line
     size = np.abs(A[:, 0]) + np.einsum("nk,nkij->nij", damp, np.abs(A[:, 1:]))
     bound = np.abs(s) + size.sum(axis=2).max(axis=1)
-    y_end = np.maximum(1.01 * bound / np.sin(np.pi / (4 * n)), 2 * omega)
+    y_end = 1.01 * np.maximum(bound, omega) / np.sin(0.8 * np.pi / (n + 1))
     h_max = np.minimum(y_end / 16, 0.5 / tau.max(axis=1))
     counts = np.full(N, -1)
     todo = np.arange(N)
