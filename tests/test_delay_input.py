@@ -189,12 +189,23 @@ def _delay_variant(mode: str) -> lyacomp.Model:
         extra.update(bifurcation="r", critical_value="0", equilibrium={"x": "0", "y": "0"})
     elif mode == "equilibrium_form":  # the operating search then follows mu alone
         extra.update(bifurcation="r", equilibrium={"x": "0", "y": "0"}, operating=0.0)
+    elif mode == "four_states":  # the large-model paths of the shared stages
+        ring = {f"x{i}": f"-x{i} - r*tanh(x{(i + 3) % 4}(t - tau))" for i in range(4)}
+        return _model(ring, states=dict.fromkeys(ring, 0.0), bifurcation="r", operating=0.2)
     return _model(equations, **extra)
 
 
 @pytest.mark.skipif(shutil.which("cc") is None, reason="needs a C compiler on PATH")
 @pytest.mark.parametrize(
-    "mode", ["newton", "delay_parameter", "no_bifurcation", "closed_forms", "equilibrium_form"]
+    "mode",
+    [
+        "newton",
+        "delay_parameter",
+        "no_bifurcation",
+        "closed_forms",
+        "equilibrium_form",
+        "four_states",
+    ],
 )
 def test_every_delay_template_variant_compiles_without_warnings(mode, tmp_path):
     # Common practice, no source: generated code must be warning-free under -Wall -Wextra.

@@ -156,6 +156,26 @@ def test_real_crossing_at_a_fold_of_the_delay_branch():
     assert res.search.loss_value == pytest.approx(-0.25, abs=1e-6)
 
 
+def test_four_state_delay_ring_loses_stability_through_a_real_root():
+    # x_i' = -x_i - mu tanh(x_{i-1}(t - tau)) (a ring of 4): Delta(lambda) = (lambda + 1) I +
+    # mu e^{-lambda tau} S with S the cyclic shift (eigenvalues w, w^4 = 1), so the roots solve
+    # lambda + 1 = -w mu e^{-lambda tau}. For mu < 1 none has Re lambda >= 0 (there
+    # |lambda + 1| >= 1 > mu); at mu = 1 the mode w = -1 has the root 0, while the other
+    # modes need |i nu + 1| = mu > 1 to reach the axis (common practice, no source).
+    ring = {f"x{i}": f"-x{i} - mu*tanh(x{(i + 3) % 4}(t - tau))" for i in range(4)}
+    model = lyacomp.Model(
+        name="delay ring",
+        states=dict.fromkeys(ring, 0.0),
+        parameters={"mu": 2.0, "tau": 0.5},
+        equations=ring,
+        bifurcation="mu",
+        operating=0.2,
+    )
+    res = lyacomp.compile(model)()
+    assert res.status == "real_eigenvalue_crossing"
+    assert res.search.loss_value == pytest.approx(1.0, abs=1e-6)
+
+
 def test_burner_operating_search_agrees_with_the_guess_search(burner):
     b = np.array([0.1, 0.3, 0.5])
     guess = burner.batch({"b": b})
