@@ -1,4 +1,4 @@
-"""The lane path against the scalar path on many samples of M2 and M3 (issue 11).
+"""The lane path against the scalar path on many samples of M1, M2 and M3 (issue 11).
 
 ``python benchmarks/lanes_check.py [--count 1000000]`` draws the benchmark's samples (every
 parameter but the bifurcation parameter within +-5 %), evaluates them once with the batch
@@ -35,6 +35,7 @@ from bench_models import FILES, MODEL_DIR, batch_inputs, draw_samples  # noqa: E
 import lyacomp  # noqa: E402
 
 FIELDS = ("l1", "omega", "period", "critical_value", "transversality")
+MODELS = ("M1", "M2", "M3")  # M1: closed-form critical value and equilibrium; M2, M3: Newton
 
 
 def check(label: str, count: int) -> bool:
@@ -132,9 +133,9 @@ def main() -> int:
         "--fallbacks", action="store_true", help="count lanes the scalar code redoes"
     )
     args = parser.parse_args()
-    ok = [check(label, args.count) for label in ("M2", "M3")]
+    ok = [check(label, args.count) for label in MODELS]
     if args.fallbacks:
-        for label in ("M2", "M3"):
+        for label in MODELS:
             redone = fallbacks(label, args.count)
             print(f"{label}: {redone} of {args.count} samples handed to the scalar code")
     return 0 if all(ok) else 1

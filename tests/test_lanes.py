@@ -1,6 +1,7 @@
 """The lane path (several samples per SIMD lane, issue 11) against the scalar path.
 
-Batch calls of two- and three-state models with a warm start run in lanes; single calls
+Batch calls of two- and three-state models with a warm start, and of two-state models
+with a closed-form critical value and equilibrium (M1), run in lanes; single calls
 run the scalar code, which the mpmath reference (test_reference_mpmath.py) and the
 published formulas (test_planar_formula.py, test_normal_form.py) check. Here the two paths
 must give the same status on every sample and values equal to 1e-14 relative (the
@@ -72,7 +73,7 @@ def _assert_same(ev: lyacomp.Evaluator, values: dict) -> int:
 
 
 @pytest.mark.parametrize("lanes", [0, 1, 2])
-@pytest.mark.parametrize("model", ["m2_towed_sensor", "m3_servo_integral"])
+@pytest.mark.parametrize("model", ["m1_pilot_valve", "m2_towed_sensor", "m3_servo_integral"])
 def test_lanes_agree_with_scalar_path_on_benchmark_models(model, lanes):
     # Reference: the scalar path of the same evaluator (checked against mpmath elsewhere).
     ev = lyacomp.compile(BENCH_MODELS / f"{model}.toml", config=_config(lanes))
@@ -112,9 +113,10 @@ def test_lane_width_setting_is_checked(monkeypatch):
     ],
     ids=["plain-c99", "two-lanes", "native-vector-math", "native-two-lanes"],
 )
-def test_standalone_lane_code_compiles_without_warnings(flags, tmp_path):
+@pytest.mark.parametrize("model_file", ["m1_pilot_valve", "m3_servo_integral"])
+def test_standalone_lane_code_compiles_without_warnings(flags, model_file, tmp_path):
     # Common practice, no source: generated code must be warning-free under -Wall -Wextra.
-    model = lyacomp.load_model(BENCH_MODELS / "m3_servo_integral.toml")
+    model = lyacomp.load_model(BENCH_MODELS / f"{model_file}.toml")
     sources = lyacomp.generate(model, header_name="lanes.h")
     (tmp_path / "lanes.c").write_text(sources.standalone)
     (tmp_path / "lanes.h").write_text(sources.header)

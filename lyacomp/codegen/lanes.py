@@ -26,14 +26,19 @@ VECTOR_MATH = {"exp": 1, "log": 1, "sin": 1, "cos": 1, "tanh": 1, "pow": 2}
 
 @dataclass(frozen=True)
 class LaneCode:
-    """Lane blocks of one model and the libm functions (name, arity) they call."""
+    """Lane blocks of one model and the libm functions (name, arity) they call.
+
+    ``linear`` (the reduced Hopf Newton's) is None for a model with a closed-form critical
+    value, which has ``critical_value`` and ``equilibrium`` instead."""
 
     f_jac: Block
-    linear: Block
+    linear: Block | None
     curvature: Block
     b_form: tuple[str, ...]
     c_form: tuple[str, ...]
     functions: tuple[tuple[str, int], ...]
+    critical_value: Block | None = None
+    equilibrium: Block | None = None
 
 
 def _split_call(code: str, start: int) -> tuple[list[str], int]:
@@ -107,19 +112,30 @@ def _lane_form(accumulations: tuple[Accumulation, ...], prefix: str) -> tuple[st
 
 def lane_code(
     f_jac: Block,
-    linear: Block,
+    linear: Block | None,
     curvature: Block,
     b_form: tuple[Accumulation, ...],
     c_form: tuple[Accumulation, ...],
     prefix: str,
+    critical_value: Block | None = None,
+    equilibrium: Block | None = None,
 ) -> LaneCode:
-    """Lane versions of the model functions and multilinear forms of the lane stage."""
+    """Lane versions of the model functions and multilinear forms of the lane stage (with
+    the closed-form critical value and equilibrium, when the model gives them)."""
     used: dict[str, int] = {}
+
+    def lanes_of(block: Block | None) -> Block | None:
+        return _lane_block(block, prefix, used) if block is not None else None
+
+    f_jac_lanes, linear_lanes, curvature_lanes = map(lanes_of, (f_jac, linear, curvature))
+    critical_lanes, equilibrium_lanes = map(lanes_of, (critical_value, equilibrium))
     return LaneCode(
-        _lane_block(f_jac, prefix, used),
-        _lane_block(linear, prefix, used),
-        _lane_block(curvature, prefix, used),
+        f_jac_lanes,
+        linear_lanes,
+        curvature_lanes,
         _lane_form(b_form, prefix),
         _lane_form(c_form, prefix),
         tuple(sorted(used.items())),
+        critical_lanes,
+        equilibrium_lanes,
     )
