@@ -3,9 +3,11 @@
 A predictor-corrector in the plane scaled to the unit square: from a point located by the
 C Newton (``Evaluator.degenerate_point``), step along the tangent of l1 = 0 and correct
 with Newton on (l1 = 0, the step's pseudo-arclength condition), the Hopf point solved at
-every evaluation. The gradient of l1 is a central difference (step 1e-6 of the plane).
-Tracing stops at the edges of the plane (the last point moved onto the edge) or where
-the Hopf point is lost (an evaluation fails).
+every evaluation. The gradient of l1 is exact (``derivatives=True``: the implicit function
+theorem in C, one batch call per Newton step with l1 itself); a model without a
+bifurcation parameter has no exact derivatives, and its gradient is a central difference
+(step 1e-6 of the plane). Tracing stops at the edges of the plane (the last point moved
+onto the edge) or where the Hopf point is lost (an evaluation fails).
 """
 
 from __future__ import annotations
@@ -34,6 +36,9 @@ class _Plane:
         self.ev, self.x, self.y, self.fixed = ev, x, y, dict(fixed)
         self.lo = np.array([xr[0], yr[0]], float)
         self.span = np.array([xr[1] - xr[0], yr[1] - yr[0]], float)
+        # Exact derivatives follow the Hopf point, so they need a bifurcation parameter
+        # (and are taken with respect to the other parameters).
+        self.exact = ev.bifurcation is not None and ev.bifurcation not in (x, y)
 
     def physical(self, u: np.ndarray) -> np.ndarray:
         return self.lo + u * self.span
@@ -43,17 +48,32 @@ class _Plane:
         batch = self.ev.batch({**self.fixed, self.x: pts[:, 0], self.y: pts[:, 1]}, threads=1)
         return np.where(batch.ok, batch.l1, np.nan)
 
-    def gradient(self, u: np.ndarray) -> np.ndarray:
+    def l1_and_gradient(self, u: np.ndarray) -> tuple[float, np.ndarray]:
+        """l1 at u and its gradient in plane coordinates (NaN where no Hopf point)."""
+        if self.exact:
+            pt = self.physical(u)
+            batch = self.ev.batch_derivatives(
+                {**self.fixed, self.x: pt[:1], self.y: pt[1:]}, threads=1
+            )
+            if not batch.ok[0]:
+                return np.nan, np.full(2, np.nan)
+            names = batch.derivative_parameters
+            row = batch.derivatives["l1"][0]
+            grad = np.array([row[names.index(self.x)], row[names.index(self.y)]])
+            return float(batch.l1[0]), grad * self.span
         e = np.eye(2) * _H
-        vals = self.l1(np.array([u + e[0], u - e[0], u + e[1], u - e[1]]))
-        return np.array([vals[0] - vals[1], vals[2] - vals[3]]) / (2 * _H)
+        vals = self.l1(np.array([u, u + e[0], u - e[0], u + e[1], u - e[1]]))
+        return vals[0], np.array([vals[1] - vals[2], vals[3] - vals[4]]) / (2 * _H)
 
 
-def _correct(plane: _Plane, u_pred: np.ndarray, t: np.ndarray) -> np.ndarray | None:
+def _correct(
+    plane: _Plane, u_pred: np.ndarray, t: np.ndarray
+) -> tuple[np.ndarray, np.ndarray] | None:
+    """Newton from the predicted point; the corrected point and the gradient of its last
+    step (within 1e-10 of the point: good for the next tangent)."""
     u = u_pred.copy()
     for _ in range(10):
-        g = plane.l1(u)[0]
-        grad = plane.gradient(u)
+        g, grad = plane.l1_and_gradient(u)
         if not (np.isfinite(g) and np.all(np.isfinite(grad))):
             return None
         jac = np.array([grad, t])
@@ -64,7 +84,7 @@ def _correct(plane: _Plane, u_pred: np.ndarray, t: np.ndarray) -> np.ndarray | N
             return None
         u = u + du
         if np.linalg.norm(du) < 1e-10:
-            return u
+            return u, grad
     return None
 
 
@@ -74,8 +94,8 @@ def _onto_edge(plane: _Plane, u: np.ndarray, axis: int) -> np.ndarray | None:
     free = 1 - axis
     u = u.copy()
     for _ in range(10):
-        g = plane.l1(u)[0]
-        slope = plane.gradient(u)[free]
+        g, grad = plane.l1_and_gradient(u)
+        slope = grad[free]
         if not (np.isfinite(g) and np.isfinite(slope)) or slope == 0:
             return None
         du = -g / slope
@@ -89,13 +109,14 @@ def _onto_edge(plane: _Plane, u: np.ndarray, axis: int) -> np.ndarray | None:
 
 def _walk(plane: _Plane, u0: np.ndarray, direction: float, ds: float, max_points: int):
     points, u = [], u0
-    grad = plane.gradient(u)
+    grad = plane.l1_and_gradient(u)[1]
     t = direction * np.array([-grad[1], grad[0]]) / np.linalg.norm(grad)
     for _ in range(max_points):
         step = ds
         while True:
-            new = _correct(plane, u + step * t, t)
-            if new is not None:
+            corrected = _correct(plane, u + step * t, t)
+            if corrected is not None:
+                new, grad = corrected
                 break
             step *= 0.5
             if step < ds / 64:
@@ -112,7 +133,6 @@ def _walk(plane: _Plane, u0: np.ndarray, direction: float, ds: float, max_points
             if edge is not None:
                 points.append(edge)
             return points, "edge of the plane"
-        grad = plane.gradient(new)
         t_new = np.array([-grad[1], grad[0]]) / np.linalg.norm(grad)
         t = t_new if t_new @ t >= 0 else -t_new
         points.append(new)
