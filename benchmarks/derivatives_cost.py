@@ -5,7 +5,8 @@ For each model the same batch of perturbed parameter sets is evaluated plain and
 alternating the two in each repeat so that both see the same machine load. Prints the
 medians of wall and CPU time per sample and their ratios; the target is at most 3x. The
 derivative batch runs the plain batch and then the derivative stage at its solved points,
-so its results equal the plain batch's (checked before timing). On a loaded machine the
+so its results are the plain batch's (to rounding: the two libraries are compiled apart;
+checked before timing). On a loaded machine the
 CPU-time ratio is the one to read; callgrind's instruction counts do not depend on load.
 Run: python benchmarks/derivatives_cost.py [--samples N] [--repeats R]
 """
@@ -51,7 +52,8 @@ def measure(path: Path, samples: int, repeats: int) -> dict:
     inputs = _inputs(ev, samples)
     plain = ev.batch(inputs, threads=1)
     full = ev.batch(inputs, threads=1, derivatives=True)
-    assert np.array_equal(plain.l1, full.l1, equal_nan=True)
+    # the plain and the derivative library are compiled apart: equal to rounding
+    assert np.allclose(plain.l1, full.l1, rtol=1e-13, atol=0, equal_nan=True)
     walls: dict[str, list[float]] = {"plain": [], "derivatives": []}
     cpus: dict[str, list[float]] = {"plain": [], "derivatives": []}
     for _ in range(repeats):
