@@ -38,13 +38,10 @@ def argument_roles(ev, function: str) -> list[str]:
     return roles
 
 
-def raw_c_call(ev, params: list[float], calls: int, blocks: int) -> dict:
-    """Median latency of ``lib.<prefix>_evaluate`` called through cffi with prepared buffers.
-
-    Arguments are set up as ``ev(**params)`` sets them up (default options, the warm start
-    prepared at the nominal parameters when the interface has one). This is the floor of
-    any Python-side call: no argument parsing, no result object.
-    """
+def raw_c_args(ev, params: list[float]) -> tuple[object, list, object]:
+    """``lib.<prefix>_evaluate``, its arguments and its result struct, set up through cffi
+    as ``ev(**params)`` sets them up (default options, the warm start prepared at the
+    nominal parameters when the interface has one)."""
     ffi, lib, prefix = ev.ffi, ev.lib, prefix_of(ev)
     nominal = [float(ev.nominal[k]) for k in ev.parameters]
     buffers = {
@@ -60,10 +57,18 @@ def raw_c_call(ev, params: list[float], calls: int, blocks: int) -> dict:
         prepare = f"{prefix}_prepare_start"
         setup = {**buffers, "params": ffi.new("double[]", nominal)}
         getattr(lib, prepare)(*(setup[r] for r in argument_roles(ev, prepare)))
-    evaluate = getattr(lib, f"{prefix}_evaluate")
-    args = [buffers[r] for r in roles]
+    return getattr(lib, f"{prefix}_evaluate"), [buffers[r] for r in roles], buffers["result"]
+
+
+def raw_c_call(ev, params: list[float], calls: int, blocks: int) -> dict:
+    """Median latency of ``lib.<prefix>_evaluate`` called through cffi with prepared buffers
+    (see ``raw_c_args``). This is the floor of any Python-side call: no argument parsing,
+    no result object.
+    """
+    evaluate, args, result = raw_c_args(ev, params)
     evaluate(*args)
     timing = per_call(lambda: evaluate(*args), calls, blocks)
-    timing["entry_point"] = f"{prefix}_evaluate({', '.join(roles)})"
-    timing["status"] = int(buffers["result"].status)
+    roles = argument_roles(ev, f"{prefix_of(ev)}_evaluate")
+    timing["entry_point"] = f"{prefix_of(ev)}_evaluate({', '.join(roles)})"
+    timing["status"] = int(result.status)
     return timing

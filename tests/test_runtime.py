@@ -67,6 +67,72 @@ def test_batch_matches_scalar_calls_and_thread_counts(normal_form):
         assert r.l1 == one.l1[i] and r.status == "ok"
 
 
+def test_fast_and_checked_scalar_paths_agree(normal_form):
+    # Python floats as keywords take the fast path; numpy scalars, ints and the mapping
+    # form take the checked one. The same numbers either way, and each result keeps its
+    # own values after later calls (the parameter buffer is reused, the result is not).
+    fast = normal_form(s=0.5, w=3.0)
+    checked = [
+        normal_form(s=np.float64(0.5), w=np.float32(3.0)),
+        normal_form({"s": 0.5}, w=3),
+        normal_form({"s": 0.5, "w": 3.0}),
+    ]
+    nominal = normal_form()
+    for r in checked:
+        assert r.l1 == fast.l1 and r.omega == fast.omega and r.equilibrium == fast.equilibrium
+    # l1 = 2 s / w for this form (math.md, planar check); omega = w
+    assert fast.l1 == pytest.approx(2 * 0.5 / 3.0, rel=1e-13) and fast.omega == 3.0
+    assert nominal.l1 == pytest.approx(2 * -1.0 / 2.0, rel=1e-13) and nominal.omega == 2.0
+    # the search starts from the nominal mu unless the call gives mu (then: the guesses)
+    assert fast.search.method == "guess" and fast.search.start_value == 0.2
+    moved = normal_form(mu=-0.1, s=0.5, w=3.0)
+    assert moved.search.start_value == -0.1 and moved.l1 == pytest.approx(fast.l1, rel=1e-13)
+    assert fast.to_dict()["search"]["start_value"] == 0.2
+    # every check of the checked path still applies when the fast path gives up half-way
+    for bad in (math.nan, math.inf, -math.inf):
+        assert normal_form(s=0.5, w=bad).status == "nonfinite_input"
+    with pytest.raises(EvaluationError, match=r"unknown parameter\(s\) \['nu'\]"):
+        normal_form(s=0.5, w=3.0, nu=1.0)
+    with pytest.raises(EvaluationError, match="parameter w must be a real number"):
+        normal_form(s=0.5, w="3.0")
+    with pytest.raises(EvaluationError, match="l2 must be True or False"):
+        normal_form(s=0.5, l2=1.0)
+    assert fast.l2 is None and normal_form(s=0.5, w=3.0, l2=True).l2 is not None
+
+
+def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
+    # Threads share one evaluator (a parameter buffer per thread, a result struct per
+    # call, the GIL released in C): concurrent calls give the serial results exactly.
+    from concurrent.futures import ThreadPoolExecutor
+
+    rng = np.random.default_rng(11)
+    s = rng.normal(0.0, 1.0, 600)
+    w = rng.uniform(0.5, 3.0, 600)
+    mu = rng.uniform(-0.5, 0.5, 600)
+
+    def call(i: int):
+        if i % 3 == 0:  # fast path
+            return normal_form(s=float(s[i]), w=float(w[i]))
+        if i % 3 == 1:  # checked path, the guesses as start
+            return normal_form(s=s[i], w=w[i], mu=mu[i])
+        return normal_form()
+
+    serial = [call(i) for i in range(600)]
+    with ThreadPoolExecutor(max_workers=8) as pool:
+        concurrent = list(pool.map(call, range(600)))
+    for i, (a, b) in enumerate(zip(serial, concurrent)):
+        assert a.status == b.status == "ok"
+        assert (a.l1, a.omega, a.critical_value, a.equilibrium) == (
+            b.l1,
+            b.omega,
+            b.critical_value,
+            b.equilibrium,
+        )
+        # l1 = 2 s / w (math.md, planar check)
+        expected = 2 * (s[i] / w[i] if i % 3 != 2 else -1.0 / 2.0)
+        assert b.l1 == pytest.approx(expected, rel=1e-11)
+
+
 def test_batch_empty_and_scalar_only(normal_form):
     b = normal_form.batch({"s": np.array([])})
     assert len(b) == 0 and b.l1.shape == (0,)

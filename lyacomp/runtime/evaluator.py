@@ -36,6 +36,8 @@ MAX_THREADS = 4096
 MAX_ITER = 100_000
 """Largest Newton iteration count per stage."""
 
+_DEGENERATE = int(Criticality.DEGENERATE)  # compared with the C struct's int per call
+
 _REAL_KINDS = "biuf"  # numpy dtype kinds of real numbers: bool, signed, unsigned, float
 
 
@@ -230,6 +232,12 @@ class Evaluator:
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
         self._local = threading.local()
         self._null = self.ffi.NULL
+        # The scalar call's fast path (see __call__): the nominal values in a buffer C only
+        # reads (so threads share it), and where the bifurcation parameter's guess sits.
+        self._c_nominal = self.ffi.new(self._params_type, self._nominal)
+        self._bif_index = self._index.get(self.bifurcation) if self.bifurcation else None
+        self._nominal_start = None if self._bif_index is None else self._nominal[self._bif_index]
+        self._fast = model.operating is None  # the default search is the guess-based one
         self._evaluate_batch = getattr(self.lib, f"{PREFIX}_evaluate_batch")
         self._evaluate_batch_from = getattr(self.lib, f"{PREFIX}_evaluate_batch_from")
         # l2 and the degenerate point live in the extended variant (none for delay models)
@@ -324,6 +332,33 @@ class Evaluator:
         the same C call (guess-based search); in a model with a parameter named
         ``derivatives`` that keyword is the parameter: use :meth:`evaluate_derivatives`.
         """
+        if params is None and operating is None and search is None and self._fast:
+            # The common call (keywords that are all parameters, Python floats, the default
+            # search) skips the general checks: anything else breaks out to them.
+            if not values:
+                return self._guess_call(self._c_nominal, self._nominal_start, self._start)
+            row = self._nominal.copy()
+            index = self._index
+            fast = True
+            try:
+                for name, value in values.items():
+                    if type(value) is not float:  # other number types (or l2=, derivatives=)
+                        fast = False
+                        break
+                    row[index[name]] = value
+            except KeyError:  # an unknown name
+                fast = False
+            if fast:
+                try:
+                    p = self._local.params
+                except AttributeError:  # first call in this thread
+                    p = self._local.params = self.ffi.new(self._params_type)
+                p[0 : len(row)] = row
+                if self._bif_index is None:
+                    return self._guess_call(p, None, self._start)
+                if self.bifurcation in values:
+                    return self._guess_call(p, row[self._bif_index], self._null)
+                return self._guess_call(p, self._nominal_start, self._start)
         want_l2 = False
         if "l2" in values and "l2" not in self._index:
             want_l2 = values.pop("l2")
@@ -382,15 +417,23 @@ class Evaluator:
         else:
             row = self._nominal
             p[0 : len(row)] = row
-        res = self.ffi.new(self._result_type)
-        if method == "operating":
-            result = self._call_operating(p, row, operating, res)
-        else:
+        if method != "operating":
             start = self._null if self.bifurcation in values else self._start
-            self._evaluate(p, self._guess, start, self._options, res)
-            guess = row[self._index[self.bifurcation]] if self.bifurcation else None
-            result = HopfResult(res, self.states, self.bifurcation, SearchInfo("guess", guess))
-        if l2 or (res.criticality == Criticality.DEGENERATE and self._has_l2):
+            guess = None if self._bif_index is None else row[self._bif_index]
+            return self._guess_call(p, guess, start, l2)
+        res = self.ffi.new(self._result_type)
+        result = self._call_operating(p, row, operating, res)
+        if l2 or (res.criticality == _DEGENERATE and self._has_l2):
+            self._second_coefficient(p, res, result)
+        return result
+
+    def _guess_call(self, p: Any, guess: float | None, start: Any, l2: bool = False) -> HopfResult:
+        """The guess-based search at parameters ``p`` (a C buffer) from ``start`` (the
+        nominal solution, or NULL: the guesses); l2 when asked for or l1 is degenerate."""
+        res = self.ffi.new(self._result_type)
+        self._evaluate(p, self._guess, start, self._options, res)
+        result = HopfResult(res, self.states, self.bifurcation, ("guess", guess))
+        if l2 or (res.criticality == _DEGENERATE and self._has_l2):
             self._second_coefficient(p, res, result)
         return result
 

@@ -72,7 +72,7 @@ class HopfResult:
         raw: Any,
         states: tuple[str, ...],
         bifurcation: str | None,
-        search: SearchInfo | None = None,
+        search: SearchInfo | tuple[Any, ...] | None = None,
         *,
         derivatives: dict[str, dict] | None = None,
     ):
@@ -80,14 +80,20 @@ class HopfResult:
         self._states = states
         self._bifurcation = bifurcation
         self._derivatives = derivatives
+        # A tuple holds SearchInfo's arguments: the scalar call leaves building it (about
+        # as costly as the C call of a small model) to the first reader.
         self._search = search
         self._l2: float | None = None
-        self._radius_gain: dict[str, float] = {}
+        self._radius_gain: dict[str, float] | None = None
 
     @property
     def search(self) -> SearchInfo | None:
         """How the point was searched for (None when the caller did not say)."""
-        return self._search
+        search = self._search
+        if type(search) is tuple:
+            # threads reading at once may each build one; they are equal
+            search = self._search = SearchInfo(*search)
+        return search
 
     def _set_second_coefficient(self, l2: float, radius_gain: dict[str, float]) -> None:
         """Attach l2 (computed on request, or because l1 is degenerate)."""
@@ -114,7 +120,7 @@ class HopfResult:
         transversality = self.transversality if self._bifurcation is not None else None
         critical = self.critical_value if self._bifurcation is not None else None
         return cycle_fold(
-            self.l1, self._l2, self.omega, transversality, critical, self._radius_gain
+            self.l1, self._l2, self.omega, transversality, critical, self._radius_gain or {}
         )
 
     @property
@@ -227,7 +233,7 @@ class HopfResult:
             "criticality": self.criticality,
             "unstable_count": self.unstable_count,
             "stable_side": self.stable_side,
-            "search": None if self._search is None else self._search.to_dict(),
+            "search": None if self.search is None else self.search.to_dict(),
         }
         if self._l2 is not None:
             fold = self.cycle_fold
