@@ -98,6 +98,15 @@ def test_fast_and_checked_scalar_paths_agree(normal_form):
     with pytest.raises(EvaluationError, match="l2 must be True or False"):
         normal_form(s=0.5, l2=1.0)
     assert fast.l2 is None and normal_form(s=0.5, w=3.0, l2=True).l2 is not None
+    # search= and operating= stay options (read from the keywords, never parameters)
+    assert normal_form(s=0.5, w=3.0, search="guess").l1 == fast.l1
+    with pytest.raises(EvaluationError, match="search must be one of"):
+        normal_form(s=0.5, search="nearest")
+    # mu < 0 is stable for this form; the operating search follows it to mu0 = 0
+    followed = normal_form(s=0.5, w=3.0, operating=-0.3)
+    assert followed.search.method == "operating" and followed.search.start_value == -0.3
+    assert followed.critical_value == pytest.approx(0.0, abs=1e-12)
+    assert followed.l1 == pytest.approx(fast.l1, rel=1e-12)
 
 
 def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):

@@ -230,10 +230,9 @@ class Evaluator:
         self._params_type = self.ffi.typeof(f"double[{max(len(self.parameters), 1)}]")
         self._result_type = self.ffi.typeof(f"{PREFIX}_result *")
         self._evaluate = getattr(self.lib, f"{PREFIX}_evaluate")
-        self._local = threading.local()
         self._null = self.ffi.NULL
-        # The scalar call's fast path (see __call__): the nominal values in a buffer C only
-        # reads (so threads share it), and where the bifurcation parameter's guess sits.
+        # For the scalar call: the nominal values in a buffer C only reads (so threads share
+        # it), and where the bifurcation parameter's guess sits.
         self._c_nominal = self.ffi.new(self._params_type, self._nominal)
         self._bif_index = self._index.get(self.bifurcation) if self.bifurcation else None
         self._nominal_start = None if self._bif_index is None else self._nominal[self._bif_index]
@@ -306,15 +305,7 @@ class Evaluator:
             f"unknown parameter(s) {bad}; this model has {list(self.parameters)}"
         )
 
-    def __call__(
-        self,
-        params: Mapping[str, float] | None = None,
-        /,
-        *,
-        operating: float | None = None,
-        search: str | None = None,
-        **values: Any,
-    ) -> HopfResult:
+    def __call__(self, params: Mapping[str, float] | None = None, /, **values: Any) -> HopfResult:
         """Evaluate one parameter set: ``ev(k=2.1)`` or ``ev({"k": 2.1})``.
 
         Every value must be one real number (see :meth:`batch` for the rules).
@@ -332,33 +323,35 @@ class Evaluator:
         the same C call (guess-based search); in a model with a parameter named
         ``derivatives`` that keyword is the parameter: use :meth:`evaluate_derivatives`.
         """
-        if params is None and operating is None and search is None and self._fast:
-            # The common call (keywords that are all parameters, Python floats, the default
-            # search) skips the general checks: anything else breaks out to them.
-            if not values:
-                return self._guess_call(self._c_nominal, self._nominal_start, self._start)
-            row = self._nominal.copy()
-            index = self._index
-            fast = True
-            try:
-                for name, value in values.items():
-                    if type(value) is not float:  # other number types (or l2=, derivatives=)
-                        fast = False
-                        break
-                    row[index[name]] = value
-            except KeyError:  # an unknown name
-                fast = False
-            if fast:
+        # operating= and search= are read from the keywords, not declared keyword-only:
+        # declared names cost every parameter keyword a string comparison per name.
+        if params is None and self._fast and "operating" not in values and "search" not in values:
+            # The common call (parameter keywords, Python floats, the default search) skips
+            # the general checks; anything else leaves p None and takes them below.
+            p, start, guess = self._c_nominal, self._start, self._nominal_start
+            if values:
+                p = self._nominal.copy()  # cffi passes a list as a temporary C array
+                index = self._index
                 try:
-                    p = self._local.params
-                except AttributeError:  # first call in this thread
-                    p = self._local.params = self.ffi.new(self._params_type)
-                p[0 : len(row)] = row
-                if self._bif_index is None:
-                    return self._guess_call(p, None, self._start)
-                if self.bifurcation in values:
-                    return self._guess_call(p, row[self._bif_index], self._null)
-                return self._guess_call(p, self._nominal_start, self._start)
+                    for name, value in values.items():
+                        if type(value) is not float:  # another number type, l2=, derivatives=
+                            p = None
+                            break
+                        p[index[name]] = value
+                except KeyError:  # an unknown name
+                    p = None
+                if p is not None and self.bifurcation in values:
+                    start, guess = self._null, p[self._bif_index]
+            if p is not None:
+                # _guess_call, inlined (a Python call costs about 0.1 us here)
+                res = self.ffi.new(self._result_type)
+                self._evaluate(p, self._guess, start, self._options, res)
+                result = HopfResult(res, self.states, self.bifurcation, ("guess", guess))
+                if res.criticality == _DEGENERATE and self._has_l2:
+                    self._second_coefficient(p, res, result)
+                return result
+        operating = values.pop("operating", None)
+        search = values.pop("search", None)
         want_l2 = False
         if "l2" in values and "l2" not in self._index:
             want_l2 = values.pop("l2")
@@ -396,15 +389,11 @@ class Evaluator:
         method = op.chosen_search(self, search, operating)
         if params is not None:
             values = _names(params, values, "parameters")
-        # The parameter buffer is allocated once per thread (threads may share an
-        # evaluator); each call only refills it. The result struct is the HopfResult's own
-        # storage, read field by field when asked for.
-        try:
-            p = self._local.params
-        except AttributeError:
-            p = self._local.params = self.ffi.new(self._params_type)
+        # The parameters go to C as a list (cffi passes it as a temporary array, so threads
+        # sharing the evaluator share no buffer), the nominal ones as the read-only buffer.
+        # The result struct is the HopfResult's own storage, read field by field when asked.
         if values:
-            row = self._nominal.copy()
+            p = row = self._nominal.copy()
             index = self._index
             try:
                 for name, value in values.items():
@@ -413,10 +402,8 @@ class Evaluator:
                     )
             except KeyError:
                 raise self._unknown(values) from None
-            p[0 : len(row)] = row
         else:
-            row = self._nominal
-            p[0 : len(row)] = row
+            row, p = self._nominal, self._c_nominal
         if method != "operating":
             start = self._null if self.bifurcation in values else self._start
             guess = None if self._bif_index is None else row[self._bif_index]
@@ -428,7 +415,7 @@ class Evaluator:
         return result
 
     def _guess_call(self, p: Any, guess: float | None, start: Any, l2: bool = False) -> HopfResult:
-        """The guess-based search at parameters ``p`` (a C buffer) from ``start`` (the
+        """The guess-based search at parameters ``p`` (a list or C buffer) from ``start`` (the
         nominal solution, or NULL: the guesses); l2 when asked for or l1 is degenerate."""
         res = self.ffi.new(self._result_type)
         self._evaluate(p, self._guess, start, self._options, res)
