@@ -184,6 +184,22 @@ def test_l2_and_degenerate_point_against_reference(family):
     assert point.critical_value == pytest.approx(float(pt.critical_value), rel=1e-9, abs=1e-12)
     assert point.omega == pytest.approx(float(pt.omega), rel=1e-9)
     assert point.l2 == pytest.approx(float(l2_star.real), rel=1e-9)
+    # dl1/da there, exact in C (the derivative stage), against 40-digit central differences
+    # of the reference l1 (h = 1e-15: truncation ~1e-30); a difference slope (error ~1e-7)
+    # or a sign slip fails.
+    with mpmath.workdps(40):
+        h = mpmath.mpf("1e-15")
+        ref_slope = (coefficients(a_star + h)[1].real - coefficients(a_star - h)[1].real) / (2 * h)
+    assert point.slope == pytest.approx(float(ref_slope), rel=1e-9)
+
+    # ... and against central differences of the compiled l1, to the difference formula's
+    # error (Richardson: steps h and 2h; common practice, no source).
+    def central(step: float) -> float:
+        return (ev(a=point.value + step).l1 - ev(a=point.value - step).l1) / (2 * step)
+
+    step = 1e-4 * max(1.0, abs(point.value))
+    fine, coarse = central(step), central(2 * step)
+    assert abs(point.slope - fine) <= 2.0 * abs(fine - coarse) / 3.0 + 1e-11 / step
 
 
 # --- degenerate point in closed form: a planar family ------------------------------------
@@ -213,8 +229,12 @@ def test_degenerate_point_in_closed_form(planar, k, w):
     assert point.value == pytest.approx(2 * k / (3 * w), rel=1e-10)
     assert abs(point.critical_value) < 1e-12
     assert point.omega == pytest.approx(w, rel=1e-12)
-    # slope of l1 = 2a/w in A: 2 * (6/16) / w (math.md: l1 = 2 a / omega)
-    assert point.slope == pytest.approx(0.75 / w, rel=1e-6)
+    # slope of l1 = 2a/w in A: 2 * (6/16) / w (math.md: l1 = 2 a / omega); exact (the
+    # derivative stage), where the former central difference was off by up to 6e-11.
+    assert point.slope == pytest.approx(0.75 / w, rel=1e-13)
+    # Newton with the exact slope needs no more steps than with the central difference
+    # (2, 3 and 2 steps measured with it for these cases).
+    assert point.steps <= {(0.6, 1.3): 2, (-0.4, 0.8): 3, (1.5, 2.0): 2}[(k, w)]
 
 
 def test_degenerate_point_errors(planar):
