@@ -68,12 +68,13 @@ def test_batch_matches_scalar_calls_and_thread_counts(normal_form):
 
 
 def test_fast_and_checked_scalar_paths_agree(normal_form):
-    # Python floats as keywords take the fast path; numpy scalars, ints and the mapping
-    # form take the checked one. The same numbers either way, and each result keeps its
-    # own values after later calls (the parameter buffer is reused, the result is not).
+    # Python and numpy float64 keywords take the fast path; other numpy scalars, ints and
+    # the mapping form take the checked one. The same numbers either way, and each result
+    # keeps its own values after later calls.
     fast = normal_form(s=0.5, w=3.0)
     checked = [
-        normal_form(s=np.float64(0.5), w=np.float32(3.0)),
+        normal_form(s=np.float64(0.5), w=np.float64(3.0)),
+        normal_form(s=np.float32(0.5), w=np.float32(3.0)),
         normal_form({"s": 0.5}, w=3),
         normal_form({"s": 0.5, "w": 3.0}),
     ]
@@ -85,8 +86,9 @@ def test_fast_and_checked_scalar_paths_agree(normal_form):
     assert nominal.l1 == pytest.approx(2 * -1.0 / 2.0, rel=1e-13) and nominal.omega == 2.0
     # the search starts from the nominal mu unless the call gives mu (then: the guesses)
     assert fast.search.method == "guess" and fast.search.start_value == 0.2
-    moved = normal_form(mu=-0.1, s=0.5, w=3.0)
-    assert moved.search.start_value == -0.1 and moved.l1 == pytest.approx(fast.l1, rel=1e-13)
+    moved = normal_form(mu=np.float64(-0.1), s=0.5, w=3.0)
+    assert moved.search.start_value == -0.1 and type(moved.search.start_value) is float
+    assert moved.l1 == pytest.approx(fast.l1, rel=1e-13)
     assert fast.to_dict()["search"]["start_value"] == 0.2
     # every check of the checked path still applies when the fast path gives up half-way
     for bad in (math.nan, math.inf, -math.inf):
@@ -122,8 +124,8 @@ def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
     def call(i: int):
         if i % 3 == 0:  # fast path
             return normal_form(s=float(s[i]), w=float(w[i]))
-        if i % 3 == 1:  # checked path, the guesses as start
-            return normal_form(s=s[i], w=w[i], mu=mu[i])
+        if i % 3 == 1:  # checked path (a mapping), the guesses as start
+            return normal_form({"s": s[i], "w": w[i], "mu": mu[i]})
         return normal_form()
 
     serial = [call(i) for i in range(600)]

@@ -38,6 +38,8 @@ MAX_ITER = 100_000
 
 _DEGENERATE = int(Criticality.DEGENERATE)  # compared with the C struct's int per call
 
+_FLOAT64 = np.float64  # a float subclass: cffi reads its double as it reads a float's
+
 _REAL_KINDS = "biuf"  # numpy dtype kinds of real numbers: bool, signed, unsigned, float
 
 
@@ -326,22 +328,23 @@ class Evaluator:
         # operating= and search= are read from the keywords, not declared keyword-only:
         # declared names cost every parameter keyword a string comparison per name.
         if params is None and self._fast and "operating" not in values and "search" not in values:
-            # The common call (parameter keywords, Python floats, the default search) skips
-            # the general checks; anything else leaves p None and takes them below.
+            # The common call (parameter keywords, Python or numpy float64 values, the default
+            # search) skips the general checks; anything else leaves p None, to take them.
             p, start, guess = self._c_nominal, self._start, self._nominal_start
             if values:
                 p = self._nominal.copy()  # cffi passes a list as a temporary C array
                 index = self._index
                 try:
                     for name, value in values.items():
-                        if type(value) is not float:  # another number type, l2=, derivatives=
+                        kind = type(value)
+                        if kind is not float and kind is not _FLOAT64:  # l2=, derivatives=, ...
                             p = None
                             break
                         p[index[name]] = value
                 except KeyError:  # an unknown name
                     p = None
                 if p is not None and self.bifurcation in values:
-                    start, guess = self._null, p[self._bif_index]
+                    start, guess = self._null, float(p[self._bif_index])
             if p is not None:
                 # _guess_call, inlined (a Python call costs about 0.1 us here)
                 res = self.ffi.new(self._result_type)
