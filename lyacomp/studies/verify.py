@@ -697,6 +697,23 @@ def check_by_simulation(
     return check
 
 
+def predicted_run(
+    res: Any, plan: OffsetPlan, eq: np.ndarray, q: np.ndarray
+) -> tuple[OffsetRun, float]:
+    """The run at one offset before it is simulated: the normal-form radius ``|w|`` and the
+    predicted cycle ``x0 + 2 Re(w q e^{i theta})`` (ODE and delay models alike)."""
+    w = math.sqrt(abs(res.transversality * plan.delta / (res.omega * res.l1)))
+    theta = np.linspace(0.0, 2 * math.pi, 400)
+    run = OffsetRun(
+        value=plan.value,
+        offset=plan.delta,
+        equilibrium=eq,
+        predicted_amplitude=plan.predicted,
+        predicted_cycle=eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q)),
+    )
+    return run, w
+
+
 def _simulate_ode_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
     """The DOP853 runs at one offset: the settled cycle (supercritical) or the two runs that
     bracket the unstable cycle (subcritical)."""
@@ -704,20 +721,9 @@ def _simulate_ode_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
     guess = np.array([res.equilibrium[s] for s in nm.state_names], float)
     eq = find_equilibrium(nm, guess)
     q, p = critical_direction(nm.jacobian(eq))
-    d, omega, l1 = res.transversality, res.omega, res.l1
     period, settle = plan.period, plan.settle
-
-    # normal-form radius |w| and the predicted cycle x0 + 2 Re(w q e^{i theta})
-    w = math.sqrt(abs(d * plan.delta / (omega * l1)))
-    theta = np.linspace(0.0, 2 * math.pi, 400)
+    leg, w = predicted_run(res, plan, eq, q)
     radius = 2 * w
-    leg = OffsetRun(
-        value=plan.value,
-        offset=plan.delta,
-        equilibrium=eq,
-        predicted_amplitude=plan.predicted,
-        predicted_cycle=eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q)),
-    )
 
     def start(fraction: float) -> np.ndarray:
         # the point of normal-form coordinate z = fraction * w (phase 0)

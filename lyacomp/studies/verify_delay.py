@@ -43,6 +43,7 @@ from lyacomp.studies.verify import (
     _samples,
     find_equilibrium,
     measure_windows,
+    predicted_run,
     run_integration,
     settled_outcome,
     start_label,
@@ -198,17 +199,9 @@ def simulate_delay_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
     ndm = numeric_delay_model(model, plan.values)
     guess = np.array([res.equilibrium[s] for s in ndm.state_names], float)
     eq = find_equilibrium(ndm.at_equilibrium(), guess)
-    d, omega, l1 = res.transversality, res.omega, res.l1
+    omega = res.omega
     lam, q, _ = critical_root(ndm, eq, omega)
-    w = math.sqrt(abs(d * plan.delta / (omega * l1)))
-    theta = np.linspace(0.0, 2 * math.pi, 400)
-    leg = OffsetRun(
-        value=plan.value,
-        offset=plan.delta,
-        equilibrium=eq,
-        predicted_amplitude=plan.predicted,
-        predicted_cycle=eq + 2 * w * np.real(np.outer(np.exp(1j * theta), q)),
-    )
+    leg, w = predicted_run(res, plan, eq, q)
     radius = 2 * w
     period, settle = plan.period, plan.settle
     reference = int(np.argmax(plan.predicted))
