@@ -187,12 +187,7 @@ def _build_or_load(
                         entry_dir(config.cache_dir, key),
                         problem,
                     )
-                # plain builds keep the four-argument call (tests stand in for _build)
-                entry = (
-                    _build(model, config, tc, key)
-                    if variant == PLAIN
-                    else _build(model, config, tc, key, variant)
-                )
+                entry = _build(model, config, tc, key, variant)
                 log.info(
                     "compiled %r (%s) in %.2f s", model.name, variant, time.perf_counter() - start
                 )

@@ -213,11 +213,11 @@ def test_build_failure_with_remembered_flags_probes_once_more(tmp_path, monkeypa
     seen = []
     real_build = pipeline._build
 
-    def build(model, config, tc, key):
+    def build(model, config, tc, key, variant):
         seen.append(tc.remembered)
         if tc.remembered:
             raise BuildError("as if the remembered flags no longer worked")
-        return real_build(model, config, tc, key)
+        return real_build(model, config, tc, key, variant)
 
     monkeypatch.setattr(pipeline, "_build", build)
     ev = pipeline.compile_model(_model(-7), config=config)

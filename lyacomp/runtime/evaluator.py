@@ -431,7 +431,7 @@ class Evaluator:
         """One evaluation by the operating-point search."""
         value = self.model.operating if operating is None else operating
         value = _real_scalar(value, "operating value")
-        guess = np.asarray(row[self._index[self.bifurcation]])
+        guess = np.asarray(row[self._bif_index])
         direction = int(op.directions(self, guess, op.check_finite(np.asarray(value))))
         info = self.ffi.new(f"{PREFIX}_search *")
         evaluate = getattr(self.lib, f"{PREFIX}_evaluate_operating")
