@@ -66,7 +66,8 @@ def test_operating_batch_matches_the_scalar_search(wright):
     tau = np.array([0.8, 1.0, 1.5])
     batch = wright.batch({"tau": tau, "r": 3.0}, operating=np.array([0.2, 0.5, 0.1]))
     assert list(batch.status_labels()) == ["ok"] * 3
-    # r0 = pi / (2 tau) on the first branch (the scaling t -> t / tau of Wright's equation)
+    # r0 = pi / (2 tau) on the first branch (the scaling t -> t / tau of Wright's equation;
+    # Hassard, Kazarinoff & Wan 1981 for r tau = pi/2)
     assert batch.critical_value == pytest.approx(math.pi / (2 * tau), rel=1e-12)
     assert batch.loss_value == pytest.approx(batch.critical_value, rel=1e-15)
     one = wright(tau=1.5, r=3.0, operating=0.1)
@@ -240,7 +241,8 @@ def test_nominal_branch_check_marks_the_second_wright_branch(wright):
     )
     tau = np.array([[0.95], [1.05], [0.98], [1.02]])
     direct = wright.batch({"tau": tau[:, 0]})
-    # r0 = pi / (2 tau) on the first branch (the scaling t -> t / tau of Wright's equation)
+    # r0 = pi / (2 tau) on the first branch (the scaling t -> t / tau of Wright's equation;
+    # Hassard, Kazarinoff & Wan 1981 for r tau = pi/2)
     assert direct.critical_value == pytest.approx(math.pi / (2 * tau[:, 0]), rel=1e-12)
     # The last two samples stand for solves that found the second Hopf point,
     # r = omega = 5 pi / (2 tau) (Hassard, Kazarinoff & Wan 1981): the continuation from the

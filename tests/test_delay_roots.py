@@ -101,7 +101,8 @@ def test_wright_equation_at_its_crossings(wright_point, crossing):
 
 def test_wright_equation_with_the_delay_as_bifurcation_parameter_just_above_the_onset():
     # r slightly above pi/2 with tau free: onset at tau = pi / (2 r) < 1, stable before it
-    # (the scaled equation lambda + r tau exp(-lambda) = 0 at r tau = pi/2).
+    # (the scaled equation lambda + r tau exp(-lambda) = 0 at r tau = pi/2; Hassard,
+    # Kazarinoff & Wan 1981 for the condition r tau = pi/2).
     r = PI / 2 * (1 + 1e-3)
     model = lyacomp.Model(
         name="wright tau free",

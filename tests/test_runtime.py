@@ -81,7 +81,8 @@ def test_fast_and_checked_scalar_paths_agree(normal_form):
     nominal = normal_form()
     for r in checked:
         assert r.l1 == fast.l1 and r.omega == fast.omega and r.equilibrium == fast.equilibrium
-    # l1 = 2 s / w for this form (math.md, planar check); omega = w
+    # l1 = 2 a / w with 16 a = f_xxx + f_xyy + g_xxy + g_yyy = 16 s for this form
+    # (Guckenheimer & Holmes 1983, eq. 3.4.11, number from memory); omega = w
     assert fast.l1 == pytest.approx(2 * 0.5 / 3.0, rel=1e-13) and fast.omega == 3.0
     assert nominal.l1 == pytest.approx(2 * -1.0 / 2.0, rel=1e-13) and nominal.omega == 2.0
     # the search starts from the nominal mu unless the call gives mu (then: the guesses)
@@ -139,7 +140,7 @@ def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
             b.critical_value,
             b.equilibrium,
         )
-        # l1 = 2 s / w (math.md, planar check)
+        # l1 = 2 a / w, 16 a = 16 s (Guckenheimer & Holmes 1983, eq. 3.4.11, from memory)
         expected = 2 * (s[i] / w[i] if i % 3 != 2 else -1.0 / 2.0)
         assert b.l1 == pytest.approx(expected, rel=1e-11)
 
