@@ -6,8 +6,8 @@ tests/test_definition_chain.py) it prints, measured in this run:
 - the symbolic part of the plain compile (derive + lower) and of the extended library's
   extra stages (fourth and fifth derivatives for l2, the exact parameter derivatives),
   wall and CPU seconds;
-- a cold ``lyacomp.compile`` (the plain library) into an empty cache, wall and CPU seconds
-  (CPU includes the C compiler's child processes);
+- a cold ``lyacomp.compile`` (the plain library) in a fresh process into an empty cache,
+  wall and CPU seconds (CPU includes the C compiler's child processes);
 - the static operation count of the plain model functions (``f_jac``, ``linear``,
   ``curvature``: binary + - * / and calls, counted in the emitted C);
 - the batch evaluation time per sample on one thread (CPU time) and that time per operation,
@@ -22,6 +22,7 @@ Run: python benchmarks/definition_chain.py [--levels 5 10 20 30] [--limit 300]
 from __future__ import annotations
 
 import argparse
+import os
 import re
 import resource
 import subprocess
@@ -97,24 +98,25 @@ def _extended_symbolic(model: lyacomp.Model) -> None:
     lower_sensitivity(der, derive_sensitivity(der))
 
 
-def _pasted_seconds(levels: int, limit: float) -> tuple[float, float] | None:
-    """Plain symbolic part of the pasted model in a child process (None past the limit)."""
+def _child_seconds(flag: str, levels: int, limit: float, cache: str | None = None):
+    """(wall, CPU) seconds printed by a child run of this script (None past the limit).
+
+    The children start with sympy's cache empty: in this process the symbolic stages have
+    already run on the same expressions, which would make a compile here look cheaper."""
+    env = {**os.environ, "LYACOMP_CACHE_DIR": cache} if cache else None
     try:
         out = subprocess.run(
-            [sys.executable, __file__, "--pasted-child", str(levels)],
+            [sys.executable, __file__, flag, str(levels)],
             capture_output=True,
             text=True,
             timeout=limit,
             check=True,
+            env=env,
         )
     except subprocess.TimeoutExpired:
         return None
     wall, cpu = out.stdout.split()
     return float(wall), float(cpu)
-
-
-def _cold_compile(model: lyacomp.Model, config: BuildConfig) -> lyacomp.Evaluator:
-    return lyacomp.compile(model, config=config)
 
 
 def _evaluation(ev: lyacomp.Evaluator) -> tuple[float, float]:
@@ -135,9 +137,15 @@ def main() -> None:
     parser.add_argument("--levels", type=int, nargs="+", default=[5, 10, 20, 30])
     parser.add_argument("--limit", type=float, default=300.0)
     parser.add_argument("--pasted-child", type=int, help=argparse.SUPPRESS)
+    parser.add_argument("--compile-child", type=int, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.pasted_child is not None:
         _, wall, cpu = _times(_plain_symbolic, chain_model(args.pasted_child, pasted=True))
+        print(wall, cpu)
+        return
+    if args.compile_child is not None:
+        # LYACOMP_CACHE_DIR is the parent's empty directory: a cold compile
+        _, wall, cpu = _times(lyacomp.compile, chain_model(args.compile_child))
         print(wall, cpu)
         return
     base_per_op = None
@@ -146,9 +154,13 @@ def main() -> None:
         low, wall_plain, cpu_plain = _times(_plain_symbolic, model)
         _, wall_ext, cpu_ext = _times(_extended_symbolic, model)
         with tempfile.TemporaryDirectory() as cache:
+            compiled = _child_seconds("--compile-child", levels, args.limit, cache)
+            if compiled is None:
+                raise SystemExit(f"the {levels}-level chain did not compile in {args.limit} s")
+            wall_compile, cpu_compile = compiled
+            # the child's library, from the cache it filled
             config = replace(BuildConfig.from_environment(), cache_dir=Path(cache))
-            ev, wall_compile, cpu_compile = _times(_cold_compile, model, config)
-            per_sample, ok = _evaluation(ev)
+            per_sample, ok = _evaluation(lyacomp.compile(model, config=config))
         blocks = (low.f_jac, low.linear, low.curvature)
         ops = [sum(operation_count(s.code) for s in b.temporaries + b.outputs) for b in blocks]
         per_op = per_sample / sum(ops)
@@ -163,7 +175,7 @@ def main() -> None:
             f" {per_sample * 1e9:8.0f} ns/sample (CPU, 1 thread, ok {ok:.0%}),"
             f" {per_op * 1e9:.3f} ns/op = {per_op / base_per_op:.2f}x the 5-level chain"
         )
-        pasted = _pasted_seconds(levels, args.limit)
+        pasted = _child_seconds("--pasted-child", levels, args.limit)
         if pasted is None:
             print(f"          definitions pasted: plain symbolic over {args.limit:.0f} s (stopped)")
         else:

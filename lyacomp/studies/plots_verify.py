@@ -8,7 +8,7 @@ from pathlib import Path
 
 import numpy as np
 
-from lyacomp.studies.verify import OUTCOME_WORDS, SimulationCheck, SimulationRun
+from lyacomp.studies.verify import OUTCOME_WORDS, OffsetRun, SimulationCheck, SimulationRun
 
 #: Our own colour choices: blue and orange stay distinct under the common colour-vision
 #: deficiencies; the prediction is drawn in black (dashed at the farther offset, dotted at
@@ -17,6 +17,8 @@ FAR_COLOUR = "#1f5fa8"
 NEAR_COLOUR = "#d9730d"
 RUN_COLOURS = {"inside": FAR_COLOUR, "outside": NEAR_COLOUR}
 PREDICTION_COLOUR = "#000000"
+#: Line styles of the predictions at the farther and at the closer offset.
+OFFSET_STYLES = ("--", ":")
 MAX_STATE_ROWS = 4
 
 _RUN_WORDS = {
@@ -27,15 +29,19 @@ _RUN_WORDS = {
 
 @dataclass(frozen=True)
 class _Trace:
-    """One run as drawn: its samples, colour, legend text and the offset's prediction."""
+    """One run as drawn: its samples, colour, legend text, and the offset it belongs to
+    (its equilibrium and predictions)."""
 
     run: SimulationRun
     colour: str
     words: str
-    equilibrium: np.ndarray
-    predicted_amplitude: np.ndarray
-    predicted_cycle: np.ndarray
+    where: OffsetRun
     style: str
+
+
+def _offsets(check: SimulationCheck) -> list[OffsetRun]:
+    """The simulated offsets, the farther first."""
+    return [check.far] + ([check.closer] if check.closer is not None else [])
 
 
 def _traces(check: SimulationCheck) -> list[_Trace]:
@@ -46,38 +52,22 @@ def _traces(check: SimulationCheck) -> list[_Trace]:
                 run,
                 RUN_COLOURS[run.label],
                 _RUN_WORDS[("subcritical", run.label)],
-                check.equilibrium,
-                check.predicted_amplitude,
-                check.predicted_cycle,
+                check.far,
                 "--",
             )
             for run in check.runs
         ]
-    traces = [
-        _Trace(
-            run,
-            FAR_COLOUR,
-            f"simulation at offset {check.offset:+.3g}",
-            check.equilibrium,
-            check.predicted_amplitude,
-            check.predicted_cycle,
-            "--",
-        )
-        for run in check.runs
-    ]
-    if check.closer is not None:
-        near = check.closer
+    traces = []
+    for where, colour, style, words in zip(
+        _offsets(check),
+        (FAR_COLOUR, NEAR_COLOUR),
+        OFFSET_STYLES,
+        ("", " (closer to onset)"),
+        strict=False,
+    ):
         traces += [
-            _Trace(
-                run,
-                NEAR_COLOUR,
-                f"simulation at offset {near.offset:+.3g} (closer to onset)",
-                near.equilibrium,
-                near.predicted_amplitude,
-                near.predicted_cycle,
-                ":",
-            )
-            for run in near.runs
+            _Trace(run, colour, f"simulation at offset {where.offset:+.3g}{words}", where, style)
+            for run in where.runs
         ]
     return traces
 
@@ -111,19 +101,15 @@ def plot_simulation_check(check: SimulationCheck, path: str | Path) -> Path:
         for trace in reversed(traces):
             ax.plot(
                 trace.run.t,
-                trace.run.x[:, j] - trace.equilibrium[j],
+                trace.run.x[:, j] - trace.where.equilibrium[j],
                 color=trace.colour,
                 lw=0.6,
                 label=trace.words,
             )
-        bands = {id(t.predicted_amplitude): t for t in traces}.values()
-        for trace in bands:
+        for where, style in zip(_offsets(check), OFFSET_STYLES, strict=False):
             for sign in (1, -1):
                 ax.axhline(
-                    sign * trace.predicted_amplitude[j],
-                    color=PREDICTION_COLOUR,
-                    ls=trace.style,
-                    lw=1.0,
+                    sign * where.predicted_amplitude[j], color=PREDICTION_COLOUR, ls=style, lw=1.0
                 )
         ax.set_ylabel(f"{check.state_names[j]} - equilibrium")
     axes[-1].set_xlabel("time")
@@ -171,15 +157,15 @@ def _phase_portrait(phase, check: SimulationCheck, traces: list[_Trace], plane) 
         handles.append(
             phase.plot([], [], "o", color="#777777", ms=6, label="where the run stopped")[0]
         )
-    cycles = list({id(t.predicted_cycle): t for t in traces}.values())
-    for k, trace in enumerate(cycles):
+    offsets = _offsets(check)
+    for k, (where, style) in enumerate(zip(offsets, OFFSET_STYLES, strict=False)):
         (pred,) = phase.plot(
-            trace.predicted_cycle[:, a],
-            trace.predicted_cycle[:, b],
+            where.predicted_cycle[:, a],
+            where.predicted_cycle[:, b],
             color=PREDICTION_COLOUR,
-            ls=trace.style,
+            ls=style,
             lw=1.4,
-            label=_cycle_words(k, len(cycles)),
+            label=_cycle_words(k, len(offsets)),
         )
         handles.append(pred)
     (eq,) = phase.plot(check.equilibrium[a], check.equilibrium[b], "kx", ms=8, label="equilibrium")

@@ -193,8 +193,9 @@ class OffsetRun:
 class SimulationCheck:
     """Outcome of :func:`check_by_simulation`, with the predictions beside the measurements.
 
-    ``value``, ``equilibrium``, ``predicted_*``, ``runs`` and ``measured`` belong to the
-    farther offset; a supercritical check also has ``closer`` (the runs at
+    ``far`` holds the runs at the farther offset (``value``, ``equilibrium``,
+    ``predicted_amplitude``, ``runs``, ``measured`` read from it); a supercritical check
+    also has ``closer`` (the runs at
     CLOSER_FRACTION of that offset) and ``onset`` (both measurements extrapolated to the
     onset, the numbers the verdict compares)."""
 
@@ -202,15 +203,10 @@ class SimulationCheck:
     criticality: str
     bifurcation: str
     critical_value: float
-    value: float
     parameters: dict[str, float]
     state_names: tuple[str, ...]
-    equilibrium: np.ndarray
-    predicted_amplitude: np.ndarray
     predicted_period: float
-    predicted_cycle: np.ndarray = field(repr=False)
-    runs: list[SimulationRun] = field(default_factory=list)
-    measured: CycleMeasurement | None = None
+    far: OffsetRun
     #: Largest relative error of the extrapolated amplitude coefficient that counts as
     #: agreement (supercritical).
     amplitude_tolerance: float = ODE_AMPLITUDE_TOLERANCE
@@ -218,8 +214,32 @@ class SimulationCheck:
     onset: OnsetFit | None = None
 
     @property
+    def value(self) -> float:
+        return self.far.value
+
+    @property
     def offset(self) -> float:
-        return self.value - self.critical_value
+        return self.far.offset
+
+    @property
+    def equilibrium(self) -> np.ndarray:
+        return self.far.equilibrium
+
+    @property
+    def predicted_amplitude(self) -> np.ndarray:
+        return self.far.predicted_amplitude
+
+    @property
+    def predicted_cycle(self) -> np.ndarray:
+        return self.far.predicted_cycle
+
+    @property
+    def runs(self) -> list[SimulationRun]:
+        return self.far.runs
+
+    @property
+    def measured(self) -> CycleMeasurement | None:
+        return self.far.measured
 
     @property
     def main_state(self) -> int:
@@ -234,10 +254,7 @@ class SimulationCheck:
     @property
     def amplitude_error(self) -> np.ndarray | None:
         """Relative error of the raw amplitude measured at the farther offset, per state."""
-        if self.measured is None:
-            return None
-        with np.errstate(divide="ignore", invalid="ignore"):
-            return self.measured.amplitude / self.predicted_amplitude - 1.0
+        return self.far.amplitude_error
 
     @property
     def period_error(self) -> float | None:
@@ -293,23 +310,13 @@ class SimulationCheck:
             "criticality": self.criticality,
             "bifurcation": self.bifurcation,
             "critical_value": self.critical_value,
-            "value": self.value,
-            "offset": self.offset,
             "parameters": dict(self.parameters),
             "equilibrium": _by_state(names, self.equilibrium),
-            "predicted": {
-                "amplitude": _by_state(names, self.predicted_amplitude),
-                "period": self.predicted_period,
-            },
-            "runs": [run.to_dict() for run in self.runs],
             "agrees": self.agrees,
+            # the farther offset's runs are the check's own top-level entries
+            **self.far.to_dict(names, self.predicted_period),
         }
-        if self.measured is not None:
-            out["measured"] = _measured_dict(names, self.measured)
-            out["relative_error"] = {
-                "amplitude": _by_state(names, self.amplitude_error),
-                "period": self.period_error,
-            }
+        out["predicted"]["period"] = self.predicted_period
         if self.closer is not None:
             out["closer"] = self.closer.to_dict(names, self.predicted_period)
         if self.onset is not None:
@@ -555,6 +562,14 @@ def _samples(sol: Any, t_end: float, period: float) -> tuple[np.ndarray, np.ndar
     return t, sol.sol(t).T
 
 
+def record_run(
+    leg: OffsetRun, label: str, fraction: float, outcome: str, sol: Any, period: float
+) -> None:
+    """Append a finished run, with its plot samples, to the runs of its offset."""
+    t, x = _samples(sol, float(sol.t[-1]), period)
+    leg.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
+
+
 # ---------------------------------------------------------------------------
 # The check itself: compiled predictions against the integration.
 # ---------------------------------------------------------------------------
@@ -666,15 +681,10 @@ def check_by_simulation(
         criticality=res.criticality,
         bifurcation=ev.bifurcation,
         critical_value=mu0,
-        value=far.value,
         parameters={k: float(v) for k, v in far_plan.values.items()},
         state_names=tuple(model.state_names),
-        equilibrium=far.equilibrium,
-        predicted_amplitude=far.predicted_amplitude,
         predicted_period=period,
-        predicted_cycle=far.predicted_cycle,
-        runs=far.runs,
-        measured=far.measured,
+        far=far,
         amplitude_tolerance=tolerance,
     )
     if not supercritical or far.measured is None or not far.measured.settled:
@@ -739,12 +749,7 @@ def _simulate_ode_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
         sol, meas = settle_on_cycle(
             nm, start(plan.start), period, settle, radius, reference, [leave]
         )
-        t, x = _samples(sol, float(sol.t[-1]), period)
-        leg.runs.append(
-            SimulationRun(
-                start_label(plan.start), plan.start, settled_outcome(meas), float(sol.t[-1]), t, x
-            )
-        )
+        record_run(leg, start_label(plan.start), plan.start, settled_outcome(meas), sol, period)
         leg.measured = meas
         return leg
 
@@ -759,6 +764,5 @@ def _simulate_ode_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
             tail = np.linspace(sol.t[-1] - 2 * period, sol.t[-1], 200)
             z = np.abs((sol.sol(tail).T - eq) @ np.conj(p)) / w
             outcome = "grew" if z.mean() > GREW_FACTOR * fraction else "stayed"
-        t, x = _samples(sol, float(sol.t[-1]), period)
-        leg.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
+        record_run(leg, label, fraction, outcome, sol, period)
     return leg

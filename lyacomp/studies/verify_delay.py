@@ -39,11 +39,10 @@ from lyacomp.studies.verify import (
     NumericModel,
     OffsetPlan,
     OffsetRun,
-    SimulationRun,
-    _samples,
     find_equilibrium,
     measure_windows,
     predicted_run,
+    record_run,
     run_integration,
     settled_outcome,
     start_label,
@@ -227,12 +226,7 @@ def simulate_delay_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
         t_end = settle + 2 * WINDOW_PERIODS * period
         sol = _integrate(ndm, history(plan.start), t_end, radius, stop(False))
         meas = measure_windows(sol, settle, period, reference) if sol.status == 0 else None
-        t, x = _samples(sol, float(sol.t[-1]), period)
-        leg.runs.append(
-            SimulationRun(
-                start_label(plan.start), plan.start, settled_outcome(meas), float(sol.t[-1]), t, x
-            )
-        )
+        record_run(leg, start_label(plan.start), plan.start, settled_outcome(meas), sol, period)
         leg.measured = meas
         return leg
 
@@ -251,6 +245,5 @@ def simulate_delay_offset(model: Any, res: Any, plan: OffsetPlan) -> OffsetRun:
             )
             z = np.array([estimate(x - eq, r) for x, r in zip(xs, rates, strict=True)]) / w
             outcome = "grew" if z.mean() > GREW_FACTOR * fraction else "stayed"
-        t, x = _samples(sol, float(sol.t[-1]), period)
-        leg.runs.append(SimulationRun(label, fraction, outcome, float(sol.t[-1]), t, x))
+        record_run(leg, label, fraction, outcome, sol, period)
     return leg
