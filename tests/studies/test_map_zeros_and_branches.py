@@ -176,23 +176,13 @@ def test_branch_changes_ignore_a_steep_smooth_edge():
     assert marked[9].all() and marked[10].all() and marked.sum() == 40
 
 
-def test_map_follows_the_equilibrium_of_its_neighbours():
-    # x' = y, y' = x - x^3/a^2 + (mu - c x) y has the equilibria x0 = +-a (and a saddle at
-    # 0); at (x0, 0) the trace is mu - c x0 and the determinant 2, so the Hopf point is at
-    # mu0 = c x0 (planar Hopf condition trace = 0, det > 0; common practice, no source).
-    # The nominal point (a = 1, guess x = -1) is on x0 = -a. Started from the model's guess
-    # alone (the critical value of the row above as the only guess), Newton lost that
-    # branch for large a: 30 of 60 cells "no Hopf point" and a column on x0 = +a. Started
-    # from a neighbour's equilibrium and critical value, every cell is on x0 = -a.
-    ev = lyacomp.compile(
-        lyacomp.Model(
-            name="two wells",
-            states={"x": -1.0, "y": 0.0},
-            parameters={"mu": -0.5, "c": 0.5, "a": 1.0},
-            equations={"x": "y", "y": "x - x**3/a**2 + (mu - c*x)*y"},
-            bifurcation="mu",
-        )
-    )
+def test_map_follows_the_equilibrium_of_its_neighbours(two_wells):
+    # The model and its exact critical value mu0 = c x0: the fixture's docstring. Started
+    # from the model's guess alone (the critical value of the row above as the only
+    # guess), Newton lost the branch x0 = -a for large a: 30 of 60 cells "no Hopf point"
+    # and a column on x0 = +a. Started from a neighbour's equilibrium and critical value,
+    # every cell is on x0 = -a.
+    ev = two_wells
     pmap = parameter_map(ev, Axis("a", 0.3, 4.0, 12), Axis("c", 0.5, 1.5, 5), locate_curve=False)
     assert (pmap.status == Status.OK).all(), pmap.counts()
     a, c = np.meshgrid(pmap.x.values, pmap.y.values)

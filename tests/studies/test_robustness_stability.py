@@ -56,24 +56,14 @@ def test_unstable_equilibria_are_counted_apart(ev):
     assert "already unstable equilibrium" in result.summary()
 
 
-def test_samples_off_the_nominal_branch_are_counted():
-    # x' = y, y' = x - x^3/a^2 + (mu - c x) y: equilibria x0 = +-a, Hopf point at
-    # mu0 = c x0 (trace mu - c x0, determinant 2; planar Hopf condition, common practice,
-    # no source). The nominal point (a = 1, guess x = -1) is on x0 = -a, and that branch
-    # exists for every a > 0, so a sample is on it exactly when its critical value is
-    # negative (c > 0). Solved directly from the nominal point, samples with large a land
-    # on x0 = +a; the continuation check must mark exactly those.
+def test_samples_off_the_nominal_branch_are_counted(two_wells):
+    # The model and its exact critical value mu0 = c x0: the fixture's docstring. The
+    # branch x0 = -a exists for every a > 0, so a sample is on it exactly when its critical
+    # value is negative (c > 0). Solved directly from the nominal point, samples with
+    # large a land on x0 = +a; the continuation check must mark exactly those.
     import numpy as np
 
-    ev = lyacomp.compile(
-        lyacomp.Model(
-            name="two wells",
-            states={"x": -1.0, "y": 0.0},
-            parameters={"mu": -0.5, "c": 0.5, "a": 1.0},
-            equations={"x": "y", "y": "x - x**3/a**2 + (mu - c*x)*y"},
-            bifurcation="mu",
-        )
-    )
+    ev = two_wells
     uncertainty = {"a": {"distribution": "uniform", "low": 0.5, "high": 3.0}}
     result = run_robustness(ev, 400, seed=3, uncertainty=uncertainty, progress=False)
     other = int(np.count_nonzero(result.kept["critical_value"] > 0))
