@@ -9,12 +9,12 @@ Dynamics and Chaos, Sec. 8.2 (section number from memory)):
 In polar coordinates r' = mu r + s r^3, theta' = w: a cycle of radius sqrt(-mu/s) exists
 where mu/s < 0 and its period is 2 pi / w exactly.
 
-Exact l1 under the normalization of /work/shared/math.md: A = [[0, -w], [w, 0]] gives
+Exact l1 under the normalization of docs/mathematics.md: A = [[0, -w], [w, 0]] gives
 q = (1, -i)/sqrt(2) (so <q, q> = 1) and p = q (then <p, q> = 1). Writing the state as
 x = w_c q + conj(w_c q) gives x + i y = sqrt(2) w_c, and the equation for z = x + i y,
 z' = (mu + i w) z + s z |z|^2, becomes w_c' = (mu + i w) w_c + 2 s w_c |w_c|^2. The
 cubic coefficient is c1 = 2 s, so l1 = Re(c1)/w = 2 s / w. (The same value follows from
-the planar formula of math.md: f_xxx + f_xyy + g_xxy + g_yyy = 16 s gives a = s and
+the planar formula of docs/mathematics.md: f_xxx + f_xyy + g_xxy + g_yyy = 16 s gives a = s and
 l1 = 2 a / w.) With d = 1 (Re lambda = mu): |w_c|^2 = -mu/(w l1) = -mu/(2 s), and the x
 amplitude 2 |q_1| |w_c| = sqrt(-mu/s) equals the exact radius, so K_x = K_y = 1.
 """

@@ -2,15 +2,15 @@
 
 Source: Guckenheimer & Holmes, Nonlinear Oscillations, Dynamical Systems, and Bifurcations
 of Vector Fields, Springer 1983, eq. 3.4.11 (equation number from memory), as written in
-/work/shared/math.md. For x' = -w y + f(x, y), y' = w x + g(x, y) (f, g of order >= 2):
+docs/mathematics.md. For x' = -w y + f(x, y), y' = w x + g(x, y) (f, g of order >= 2):
 
     16 a = f_xxx + f_xyy + g_xxy + g_yyy
            + (1/w) [f_xy (f_xx + f_yy) - g_xy (g_xx + g_yy) - f_xx g_xx + f_yy g_yy]
 
-and l1 = 2 a / w under math.md's normalization (the 2 comes from <q, q> = 1; see
+and l1 = 2 a / w under docs/mathematics.md's normalization (the 2 comes from <q, q> = 1; see
 tests/test_normal_form.py for the derivation on the normal form).
 
-Orientation (math.md): the formula assumes the linear part [[0, -w], [w, 0]]. For the
+Orientation (docs/mathematics.md): the formula assumes the linear part [[0, -w], [w, 0]]. For the
 clockwise linear part [[0, w], [-w, 0]] it holds with w replaced by -w inside the bracket,
 while l1 = 2 a / |w| (a is the radial coefficient of r' = a r^3, whose sign does not depend
 on the sense of rotation).
@@ -64,7 +64,8 @@ def planar_a(c: dict[str, np.ndarray], w_signed: np.ndarray) -> np.ndarray:
 
 @pytest.mark.parametrize("orientation", (1, -1), ids=("counterclockwise", "clockwise"))
 def test_l1_equals_planar_formula(orientation):
-    # Guckenheimer & Holmes 1983, eq. 3.4.11 (number from memory), orientation per math.md.
+    # Guckenheimer & Holmes 1983, eq. 3.4.11 (number from memory), orientation per
+    # docs/mathematics.md.
     rng = np.random.default_rng(20 + orientation)
     coeffs = {f"{c}{k}": rng.uniform(-2.0, 2.0, DRAWS) for c in "fg" for k in MONOMIALS}
     w = rng.uniform(0.3, 3.0, DRAWS)
@@ -85,9 +86,9 @@ def test_l1_equals_planar_formula(orientation):
 
 
 def test_orientation_matters_for_the_quadratic_group():
-    # math.md: with the clockwise linear part the quadratic bracket changes sign. A field with
-    # only quadratic terms tells the two orientations apart, so a compiler that ignored the
-    # sense of rotation would fail one of the two checks below.
+    # docs/mathematics.md: with the clockwise linear part the quadratic bracket changes
+    # sign. A field with only quadratic terms tells the two orientations apart, so a
+    # compiler that ignored the sense of rotation would fail one of the two checks below.
     coeffs = {f"{c}{k}": 0.0 for c in "fg" for k in MONOMIALS}
     coeffs.update(f20=1.0, f11=0.5, g11=-0.7, g02=0.9)
     single = {k: np.array([v]) for k, v in coeffs.items()}

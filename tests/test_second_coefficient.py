@@ -1,9 +1,10 @@
 """The second Lyapunov coefficient l2 and the degenerate Hopf point (l1 = 0).
 
 External checks, source beside each:
-- the Bautin normal form after random linear changes of coordinates (math.md check values
-  l1 = 2 beta2, l2 = 4 s, and the invariance l2_y = l2_x / |T^-1 q|^4; Kuznetsov, Elements
-  of Applied Bifurcation Theory, 3rd ed. 2004, Ch. 8, the generalized Hopf normal form);
+- the Bautin normal form after random linear changes of coordinates (docs/mathematics.md
+  check values l1 = 2 beta2, l2 = 4 s, and the invariance l2_y = l2_x / |T^-1 q|^4;
+  Kuznetsov, Elements of Applied Bifurcation Theory, 3rd ed. 2004, Ch. 8, the generalized
+  Hopf normal form);
 - a 40-digit series reference (tests/reference/mp_bautin.py, no lyacomp code) on 3-state
   models tuned to l1 = 0 by the reference itself;
 - the planar formula of Guckenheimer & Holmes 1983, eq. 3.4.11 (equation number from
@@ -68,8 +69,8 @@ def test_bautin_normal_form_after_linear_change(bautin, seed):
     values |= {f"u{i + 1}{j + 1}": u[i, j] for i in range(2) for j in range(2)}
     r = bautin(values, l2=True)
     assert r.ok, r.status
-    # math.md: for the normal form in (X, Y), l1 = 2 b2 / w and l2 = 4 s / w (z = w/sqrt 2;
-    # the /w from l = Re c / omega); x = T y: l1 / |T^-1 q|^2, l2 / |T^-1 q|^4 with
+    # docs/mathematics.md: for the normal form in (X, Y), l1 = 2 b2 / w and l2 = 4 s / w
+    # (z = w/sqrt 2; the /w from l = Re c / omega); x = T y: l1 / |T^-1 q|^2, l2 / |T^-1 q|^4 with
     # q = (1, -i)/sqrt(2), the eigenvector of [[0, -w], [w, 0]] for i w (<q, q> = 1).
     q = np.array([1.0, -1.0j]) / math.sqrt(2)
     g = np.linalg.norm(u @ q)
@@ -79,7 +80,7 @@ def test_bautin_normal_form_after_linear_change(bautin, seed):
 
 @pytest.mark.parametrize("s", (-0.7, 0.9))
 def test_degenerate_point_reports_l2_and_onset(bautin, s):
-    # l1 = 2 b2 = 0: degenerate; l2 = 4 s decides (math.md: l2 < 0 soft, l2 > 0 hard).
+    # l1 = 2 b2 = 0: degenerate; l2 = 4 s decides (docs/mathematics.md: l2 < 0 soft, l2 > 0 hard).
     r = bautin(b2=0.0, s=s)
     assert r.criticality == "degenerate"
     # the plain library has no l2 stage: the evaluator fetched l2 from its extended twin
@@ -94,9 +95,9 @@ def test_degenerate_point_reports_l2_and_onset(bautin, s):
 
 
 def test_fold_of_cycles_from_the_normal_form(bautin):
-    # r' = r (b1 + b2 r^2 + s r^4) in (X, Y) (math.md check form, T = I, w = 1): two cycles
-    # merge where b2^2 = 4 s b1, at r^2 = -b2 / (2 s) (common practice, no source: the
-    # double root of a quadratic).
+    # r' = r (b1 + b2 r^2 + s r^4) in (X, Y) (docs/mathematics.md check form, T = I,
+    # w = 1): two cycles merge where b2^2 = 4 s b1, at r^2 = -b2 / (2 s) (common practice,
+    # no source: the double root of a quadratic).
     b2, s = 0.3, -0.7
     r = bautin(b2=b2, s=s, l2=True)
     fold = r.cycle_fold
@@ -229,7 +230,7 @@ def test_degenerate_point_in_closed_form(planar, k, w):
     assert point.value == pytest.approx(2 * k / (3 * w), rel=1e-10)
     assert abs(point.critical_value) < 1e-12
     assert point.omega == pytest.approx(w, rel=1e-12)
-    # slope of l1 = 2a/w in A: 2 * (6/16) / w (math.md: l1 = 2 a / omega); exact (the
+    # slope of l1 = 2a/w in A: 2 * (6/16) / w (docs/mathematics.md: l1 = 2 a / omega); exact (the
     # derivative stage), where the former central difference was off by up to 6e-11.
     assert point.slope == pytest.approx(0.75 / w, rel=1e-13)
     # Newton with the exact slope needs no more steps than with the central difference
@@ -319,7 +320,8 @@ def test_simulation_shows_two_cycles_outer_stable(planar):
 
 
 def test_time_rescaling_and_reversal():
-    # math.md, Invariances: F -> k F (k > 0) leaves l2 unchanged; F -> -F flips its sign.
+    # docs/mathematics.md, Invariances: F -> k F (k > 0) leaves l2 unchanged; F -> -F flips
+    # its sign.
     # (Normal form: w' = k(i omega w + c2 w|w|^4) gives c2 -> k c2, omega -> k omega.)
     eqs = {name: f"tk*({rhs})" for name, rhs in FAMILIES["polynomial"].items()}
     model = lyacomp.Model(

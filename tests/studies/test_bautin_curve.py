@@ -15,7 +15,7 @@ from lyacomp.studies.bautin_curve import trace_zero_curve  # noqa: E402
 from lyacomp.studies.maps import Axis, parameter_map  # noqa: E402
 
 # The tilted normal form of tests/studies/test_maps.py: Guckenheimer & Holmes (1983)
-# eq. 3.4.11 (equation number from memory), with math.md's l1 = 2 a / omega, gives
+# eq. 3.4.11 (equation number from memory), with docs/mathematics.md's l1 = 2 a / omega, gives
 # l1 = 2 s / w - a b / (2 w^2): l1 = 0 on the hyperbola a b = 4 s w (two branches).
 S, W = -0.47, 1.5
 TILTED = lyacomp.Model(
@@ -60,7 +60,7 @@ def test_map_traces_both_branches_of_the_hyperbola(tilted, tmp_path):
 
 def test_trace_stops_where_the_hopf_point_disappears():
     # x' = mu x - y + ..., y' = c x + mu y + ...: trace 0 and det = c, so a Hopf point
-    # needs c > 0 (math.md: for n = 2, trace A = 0 and det A > 0); for c < 0 the pair is
+    # needs c > 0 (docs/mathematics.md: for n = 2, trace A = 0 and det A > 0); for c < 0 the pair is
     # real (a neutral saddle). The curve l1 = 0 in the (k, c) plane runs into c = 0.
     model = lyacomp.Model(
         name="hopf_ends_at_c0",

@@ -25,7 +25,7 @@ from lyacomp.studies.uncertainty import chunk_rng, draw_scores, parse_uncertaint
 
 # Hopf normal form x' = mu x - y + s x r^2, y' = x + mu y + s y r^2: the radial equation
 # is r' = mu r + s r^3, so a = s and l1 = 2 a / omega = 2 s (Guckenheimer & Holmes 1983,
-# eq. 3.4.11 (number from memory), with the normalization of /work/shared/math.md).
+# eq. 3.4.11 (number from memory), with the normalization of docs/mathematics.md).
 NORMAL_FORM = dict(
     name="normal form",
     states={"x": 0.0, "y": 0.0},

@@ -65,7 +65,7 @@ def test_critical_root_and_radius_of_the_linear_delay_equation():
     lam, q, p = critical_root(ndm, np.zeros(1), PI / 2)
     assert lam == pytest.approx(complex(lambertw(-r, 0)), rel=1e-12)
     assert abs(q[0]) == pytest.approx(1.0)
-    # <p, Delta'(lambda) q> = 1 with Delta' = 1 - r exp(-lambda) (math.md)
+    # <p, Delta'(lambda) q> = 1 with Delta' = 1 - r exp(-lambda) (docs/mathematics.md)
     assert np.conj(p[0]) * (1 - r * np.exp(-lam)) * q[0] == pytest.approx(1.0)
     # on x = 2 Re(z q e^{i w t}) the estimate returns |z| at every phase
     est = radius_estimator(q, 2.0)
