@@ -4,8 +4,9 @@ For each model the same batch of perturbed parameter sets is evaluated plain and
 ``derivatives=True`` (every parameter other than the bifurcation parameter), one thread,
 alternating the two in each repeat so that both see the same machine load. Prints the
 medians of wall and CPU time per sample and their ratios; the target is at most 3x. The
-derivative batch runs the plain batch and then the derivative stage at its solved points,
-so its results are the plain batch's (to rounding: the two libraries are compiled apart;
+derivative batch runs the plain batch and then the derivative stage at its solved points
+(in SIMD lanes for two and three states, like the plain batch), so its results are the
+plain batch's (to rounding: the two libraries are compiled apart;
 checked before timing). On a loaded machine the
 CPU-time ratio is the one to read; callgrind's instruction counts do not depend on load.
 Run: python benchmarks/derivatives_cost.py [--samples N] [--repeats R]

@@ -139,3 +139,104 @@ def lane_code(
         critical_lanes,
         equilibrium_lanes,
     )
+
+
+@dataclass(frozen=True)
+class SensitivityLanes:
+    """Lane versions of the derivative stage's model code and contracted forms
+    (``templates/stage_lanes_sensitivity.c.j2``), and the libm functions they call."""
+
+    terms: Block
+    b_left: tuple[str, ...]
+    c_left: tuple[str, ...]
+    c_left_same: tuple[str, ...]
+    b_weight: tuple[str, ...]
+    c_weight: tuple[str, ...]
+    lift: tuple[str, ...]
+    contract: tuple[str, ...]
+    functions: tuple[tuple[str, int], ...]
+
+
+# The complex vectors of the derivative stage's forms (every other array there is real).
+_COMPLEX_ARRAYS = frozenset({"w", "u", "v", "z", "pq"})
+
+
+def _lane_value(code: str, prefix: str) -> tuple[str, bool]:
+    """A factor of a generated product as lane code and whether it is complex."""
+    if _is_constant(code):
+        return f"{prefix}_splat({code})", False
+    return code, code.split("[", 1)[0] in _COMPLEX_ARRAYS
+
+
+def _lane_mul(a: tuple[str, bool], b: tuple[str, bool], prefix: str) -> tuple[str, bool]:
+    if a[1] and b[1]:
+        return f"{prefix}_cmul({a[0]}, {b[0]})", True
+    if a[1] or b[1]:
+        real, cplx = (b[0], a[0]) if a[1] else (a[0], b[0])
+        return f"{prefix}_cscale({real}, {cplx})", True
+    return f"{a[0]} * {b[0]}", False
+
+
+def _lane_product(code: str, prefix: str) -> tuple[str, bool]:
+    factors = [_lane_value(f.strip(), prefix) for f in code.split(" * ")]
+    value = factors[0]
+    for f in factors[1:]:
+        value = _lane_mul(value, f, prefix)
+    return value
+
+
+def _lane_accumulations(
+    accumulations: tuple[Accumulation, ...], prefix: str, complex_target: bool
+) -> tuple[str, ...]:
+    """``target += factor * (terms)`` in lanes, products left to right as in the scalar
+    text; a real target of a complex value takes its real part (the scalar ``creal``)."""
+    lines = []
+    for a in accumulations:
+        total: tuple[str, bool] | None = None
+        for term in a.terms:
+            product = _lane_product(term, prefix)
+            if total is None:
+                total = product
+            elif total[1]:
+                total = (f"{prefix}_cadd({total[0]}, {product[0]})", True)
+            else:
+                total = (f"{total[0]} + {product[0]}", False)
+        if total is None:
+            raise CodegenError(f"an accumulation into {a.target} has no terms")
+        value = _lane_mul(_lane_product(a.factor, prefix), total, prefix)
+        if complex_target:
+            lines.append(f"{a.target} = {prefix}_cadd({a.target}, {value[0]});")
+        else:
+            lines.append(f"{a.target} += {value[0]}{'.re' if value[1] else ''};")
+    return tuple(lines)
+
+
+def lane_sensitivity(
+    terms: Block,
+    forms: dict[str, tuple[Accumulation, ...]],
+    prefix: str,
+) -> SensitivityLanes:
+    """Lane versions of the derivative stage's fragments (``codegen/lower_sensitivity.py``:
+    ``forms`` maps b_left, c_left, c_left_same, b_weight, c_weight, lift and contract to
+    their accumulations); ``contract`` writes the complex ``lam`` and the real ``l1p``."""
+    used: dict[str, int] = {}
+    complex_out = {"b_left", "c_left", "c_left_same"}
+    lines = {
+        name: _lane_accumulations(acc, prefix, name in complex_out)
+        for name, acc in forms.items()
+        if name != "contract"
+    }
+    contract = tuple(
+        _lane_accumulations((a,), prefix, a.target.startswith("lam["))[0] for a in forms["contract"]
+    )
+    return SensitivityLanes(
+        terms=_lane_block(terms, prefix, used),
+        b_left=lines["b_left"],
+        c_left=lines["c_left"],
+        c_left_same=lines["c_left_same"],
+        b_weight=lines["b_weight"],
+        c_weight=lines["c_weight"],
+        lift=lines["lift"],
+        contract=contract,
+        functions=tuple(sorted(used.items())),
+    )

@@ -48,6 +48,18 @@ class SensitivityLowered:
     third (``w3``) derivative entries carried to a state change e_m, through the entries
     one order higher (``d2``, ``d3``, ``d4``)."""
 
+    def forms(self) -> dict[str, tuple[Accumulation, ...]]:
+        """The contracted forms by name (for their lane versions, ``codegen/lanes.py``)."""
+        return {
+            "b_left": self.b_left,
+            "c_left": self.c_left,
+            "c_left_same": self.c_left_same,
+            "b_weight": self.b_weight,
+            "c_weight": self.c_weight,
+            "lift": self.lift,
+            "contract": self.contract,
+        }
+
 
 def _products(order: tuple[int, ...], slots: str) -> str:
     return " * ".join(f"{v}[{a}]" for v, a in zip(slots, order, strict=True))

@@ -14,7 +14,7 @@ from ..errors import ModelError
 from ..model import Model
 from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..status import Status
-from .lanes import VECTOR_MATH, lane_code
+from .lanes import VECTOR_MATH, lane_code, lane_sensitivity
 from .lower import Lowered
 from .lower_higher import LoweredHigher
 from .lower_sensitivity import SensitivityLowered
@@ -130,6 +130,12 @@ def render(
             lowered.critical_value if closed_form else None,
             lowered.equilibrium if closed_form else None,
         )
+    lanes_sens = None
+    if lanes is not None and sensitivity is not None:
+        lanes_sens = lane_sensitivity(sensitivity.terms, sensitivity.forms(), prefix)
+    lane_functions = sorted(
+        set(lanes.functions if lanes else ()) | set(lanes_sens.functions if lanes_sens else ())
+    )
     context = {
         "pfx": prefix,
         "PFX": prefix.upper(),
@@ -172,7 +178,9 @@ def render(
         "lanes_curvature": lanes.curvature if lanes else None,
         "lanes_b_form": lanes.b_form if lanes else (),
         "lanes_c_form": lanes.c_form if lanes else (),
-        "lane_functions": lanes.functions if lanes else (),
+        "lane_functions": lane_functions,
+        # The derivative stage in lanes (templates/stage_lanes_sensitivity.c.j2), or None.
+        "lanes_sens": lanes_sens,
         "vector_math": tuple(VECTOR_MATH),
     }
     if lowered.n_delays:
