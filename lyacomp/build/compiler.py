@@ -293,37 +293,128 @@ def python_include_dirs() -> list[str]:
     return sorted({paths["include"], paths.get("platinclude", paths["include"])})
 
 
-def compile_shared(tc: Toolchain, source: Path, output: Path, include_dirs: list[str]) -> float:
-    """Compile one C file into a shared library; returns seconds taken."""
-    cmd = [
-        *tc.command,
-        *tc.compile_flags,
-        *(f"-I{d}" for d in include_dirs),
+def wrapper_flags(tc: Toolchain) -> tuple[str, ...]:
+    """The flags of the cffi wrapper: those of the model at -O1.
+
+    The wrapper only converts arguments and calls the model's entry points, so -O3 buys
+    it nothing but compile time; flags the user added (LYACOMP_CFLAGS) still come last.
+    """
+    return tuple("-O1" if flag == "-O3" else flag for flag in tc.compile_flags)
+
+
+@dataclass(frozen=True)
+class Unit:
+    """One translation unit of a library: its source, its object file and its flags."""
+
+    source: Path
+    output: Path
+    flags: tuple[str, ...]
+
+
+def _failure(cmd: list[str], source: Path, returncode: int, text: str) -> BuildError:
+    return BuildError(
+        f"the C compiler rejected the generated code for {source.name} "
+        f"(exit {returncode}); source kept at {source}\n"
+        f"command: {shlex.join(cmd)}\n{text[-4000:]}",
+        shlex.join(cmd),
+        text,
         str(source),
-        "-o",
-        str(output),
-        *tc.link_flags,
-    ]
-    start = time.perf_counter()
+    )
+
+
+def _start(cmd: list[str], source: Path) -> subprocess.Popen:
     try:
-        out = _run(cmd, cwd=str(source.parent))
-    except subprocess.TimeoutExpired:
-        raise BuildError(
-            f"the C compiler took more than 600 s on {source}", shlex.join(cmd), "", str(source)
-        ) from None
+        return subprocess.Popen(
+            cmd,
+            cwd=str(source.parent),
+            stdout=subprocess.PIPE,
+            stderr=subprocess.PIPE,
+            text=True,
+        )
     except OSError as exc:
         raise CompilerNotFoundError(f"cannot run {cmd[0]}: {exc}. {_INSTALL_HINT}") from None
-    if out.returncode != 0:
-        text = (out.stderr + out.stdout).strip()
+
+
+def _finish(proc: subprocess.Popen, cmd: list[str], source: Path, deadline: float) -> None:
+    try:
+        stdout, stderr = proc.communicate(timeout=max(deadline - time.monotonic(), 0.0))
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.communicate()
         raise BuildError(
-            f"the C compiler rejected the generated code for {source.name} "
-            f"(exit {out.returncode}); source kept at {source}\n"
-            f"command: {shlex.join(cmd)}\n{text[-4000:]}",
+            f"the C compiler took more than {_TIMEOUT:g} s on {source}",
             shlex.join(cmd),
-            text,
+            "",
             str(source),
-        )
-    return time.perf_counter() - start
+        ) from None
+    if proc.returncode != 0:
+        raise _failure(cmd, source, proc.returncode, (stderr + stdout).strip())
+
+
+_TIMEOUT = 600.0
+
+
+class Compilation:
+    """Compiler runs of the units of one library, started at once and run side by side.
+
+    :meth:`add` starts a unit's compiler and returns (so Python can prepare the next
+    unit meanwhile); :meth:`link` waits for all of them and links the library.
+    """
+
+    def __init__(self, tc: Toolchain) -> None:
+        self._tc = tc
+        self._running: list[tuple[subprocess.Popen, list[str], Path]] = []
+        self._objects: list[Path] = []
+        self._start = time.perf_counter()
+        self._deadline = time.monotonic() + _TIMEOUT
+
+    def add(self, unit: Unit) -> None:
+        """Start compiling ``unit`` to its object file."""
+        cmd = [
+            *self._tc.command,
+            *unit.flags,
+            "-c",
+            str(unit.source),
+            "-o",
+            str(unit.output),
+        ]
+        try:
+            proc = _start(cmd, unit.source)
+        except CompilerNotFoundError:
+            self._stop()
+            raise
+        self._running.append((proc, cmd, unit.source))
+        self._objects.append(unit.output)
+
+    def _stop(self) -> None:
+        for proc, _, _ in self._running:
+            proc.kill()
+            proc.communicate()
+        self._running.clear()
+
+    def link(self, output: Path) -> float:
+        """Wait for every unit, link them into the shared library ``output``; returns the
+        seconds since the first unit started. A failing unit stops the others."""
+        try:
+            while self._running:
+                proc, cmd, source = self._running[0]
+                _finish(proc, cmd, source, self._deadline)
+                self._running.pop(0)
+        finally:
+            self._stop()
+        cmd = [
+            *self._tc.command,
+            *self._tc.compile_flags,
+            *map(str, self._objects),
+            "-o",
+            str(output),
+            *self._tc.link_flags,
+        ]
+        proc = _start(cmd, self._objects[0])
+        _finish(proc, cmd, self._objects[0], self._deadline)
+        for obj in self._objects:  # the cache entry keeps the sources and the library
+            obj.unlink(missing_ok=True)
+        return time.perf_counter() - self._start
 
 
 def shared_library_suffix() -> str:

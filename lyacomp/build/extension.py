@@ -19,7 +19,14 @@ import cffi
 from ..codegen import CSources
 from ..errors import BuildError
 from .cache import Entry
-from .compiler import Toolchain, compile_shared, python_include_dirs, shared_library_suffix
+from .compiler import (
+    Compilation,
+    Toolchain,
+    Unit,
+    python_include_dirs,
+    shared_library_suffix,
+    wrapper_flags,
+)
 
 log = logging.getLogger("lyacomp")
 
@@ -31,22 +38,33 @@ def module_name(key: str) -> str:
 def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str) -> dict[str, Any]:
     """Write the C files into ``build_dir`` and compile the extension there.
 
+    Two translation units, compiled side by side and then linked: the model
+    (``model.c``, the same file ``lyacomp emit`` writes, at the full flags) and the cffi
+    wrapper, which only includes ``model.h`` (at :func:`wrapper_flags`). The model's
+    symbols are hidden: the library exports nothing but the module's init function.
     Returns the metadata that describes the build.
     """
     name = module_name(key)
-    (build_dir / "model.c").write_text(sources.standalone, encoding="utf-8")
+    model_c = build_dir / "model.c"
+    model_c.write_text(sources.standalone, encoding="utf-8")
     (build_dir / "model.h").write_text(sources.header, encoding="utf-8")
     ffi = cffi.FFI()
     try:
         ffi.cdef(sources.cdef)
     except cffi.CDefError as exc:  # a template bug, not user input
         raise BuildError(f"internal error in the generated declarations: {exc}") from exc
-    ffi.set_source(name, sources.embedded)
+    model_flags = (*tc.compile_flags, "-fvisibility=hidden")
+    job = Compilation(tc)
+    # The model is most of the compiler's work: it starts before cffi writes the wrapper.
+    job.add(Unit(model_c, build_dir / "model.o", model_flags))
+    ffi.set_source(name, '#include "model.h"\n')
     wrapper = build_dir / f"{name}.c"
     with contextlib.redirect_stdout(io.StringIO()):  # cffi announces the file it writes
         ffi.emit_c_code(str(wrapper))
+    cold = (*wrapper_flags(tc), *(f"-I{d}" for d in python_include_dirs()))
+    job.add(Unit(wrapper, build_dir / f"{name}.o", cold))
     library = build_dir / f"{name}{shared_library_suffix()}"
-    seconds = compile_shared(tc, wrapper, library, python_include_dirs())
+    seconds = job.link(library)
     return {
         "module": name,
         "library": library.name,
@@ -54,7 +72,8 @@ def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str)
         "compile_seconds": round(seconds, 3),
         "compiler": list(tc.command),
         "compiler_version": tc.version,
-        "flags": list(tc.compile_flags),
+        "flags": list(model_flags),
+        "wrapper_flags": list(cold),
         "openmp": tc.openmp,
         "built_at": time.strftime("%Y-%m-%dT%H:%M:%S%z"),
     }
