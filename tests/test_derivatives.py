@@ -236,3 +236,27 @@ def test_cli_json_derivatives_key_only_with_flag():
     for q in QUANTITIES:
         assert set(with_flag["derivatives"][q]) == {"bias", "stiff", "drag", "cubic"}
         assert all(math.isfinite(v) for v in with_flag["derivatives"][q].values())
+
+
+@pytest.mark.parametrize("solved", [0, 2, 4])
+def test_batch_derivative_arrays_leave_out_the_bifurcation_parameter(solved):
+    # Common practice, no source: numpy's fancy indexing as the reference for which rows of
+    # the parameter-major buffers reach the user (views when the kept rows are one run).
+    from lyacomp.runtime.derivatives import SCALAR_QUANTITIES, batch_derivatives
+
+    n_params, n, count = 5, 2, 7
+    rng = np.random.default_rng(solved)
+    arrays = {q: rng.normal(size=(n_params, count)) for q in SCALAR_QUANTITIES}
+    arrays["equilibrium"] = rng.normal(size=(n_params, n, count))
+    arrays["status"] = np.zeros(count, dtype=np.int32)
+    arrays["status"][3] = 5
+    expected = {q: arrays[q].copy() for q in (*SCALAR_QUANTITIES, "equilibrium")}
+    keep = [k for k in range(n_params) if k != solved]
+    out = batch_derivatives(arrays, keep, (count,))
+    for q in SCALAR_QUANTITIES:
+        want = expected[q][keep].T
+        want[3] = np.nan
+        np.testing.assert_array_equal(out[q], want, err_msg=q)
+    want = np.moveaxis(expected["equilibrium"][keep], -1, 0)
+    want[3] = np.nan
+    np.testing.assert_array_equal(out["equilibrium"], want)

@@ -46,6 +46,14 @@ def batch_derivative_buffers(ffi: Any, count: int, n_params: int, n: int):
     return c_der, arrays
 
 
+def _kept_rows(buffer: np.ndarray, keep: list[int]) -> np.ndarray:
+    """The rows ``keep`` of a parameter-major buffer: a view when they are one run (the
+    bifurcation parameter first or last), which spares a copy of every output."""
+    if keep and keep == list(range(keep[0], keep[0] + len(keep))):
+        return buffer[keep[0] : keep[0] + len(keep)]
+    return buffer[keep]
+
+
 def batch_derivatives(
     arrays: dict[str, np.ndarray], keep: list[int], shape: tuple[int, ...]
 ) -> dict[str, np.ndarray]:
@@ -54,10 +62,10 @@ def batch_derivatives(
     missing = arrays["status"] != 0
     out = {}
     for q in SCALAR_QUANTITIES:
-        a = arrays[q][keep].T  # the fancy index made a copy already
+        a = _kept_rows(arrays[q], keep).T  # the buffers are this call's own
         a[missing] = math.nan
         out[q] = a.reshape(shape + (len(keep),))
-    eq = np.moveaxis(arrays["equilibrium"][keep], -1, 0)
+    eq = np.moveaxis(_kept_rows(arrays["equilibrium"], keep), -1, 0)
     eq[missing] = math.nan
     out["equilibrium"] = eq.reshape(shape + eq.shape[1:])
     return out
