@@ -67,6 +67,38 @@ def test_batch_matches_scalar_calls_and_thread_counts(normal_form):
         assert r.l1 == one.l1[i] and r.status == "ok"
 
 
+@pytest.mark.parametrize("with_mu", [False, True], ids=["lanes", "scalar loop"])
+def test_large_batch_same_on_one_and_two_threads(normal_form, with_mu):
+    # From 16384 samples on, the threads first touch their own shares of the output pages
+    # (one zero byte per page) before the samples: every output element must still be the
+    # sample's own value, with either driver (mu given: no warm start, the scalar loop).
+    rng = np.random.default_rng(5)
+    count = 40_000
+    values = {"s": rng.normal(0.0, 1.0, count), "w": rng.uniform(0.5, 3.0, count)}
+    if with_mu:
+        values["mu"] = rng.uniform(-0.5, 0.5, count)
+    one = normal_form.batch(values, threads=1)
+    two = normal_form.batch(values, threads=2)
+    for field in (
+        "status",
+        "criticality",
+        "cycle_side",
+        "unstable_count",
+        "stable_side",
+        "l1",
+        "omega",
+        "period",
+        "critical_value",
+        "transversality",
+        "equilibrium",
+        "amplitude",
+    ):
+        np.testing.assert_array_equal(getattr(one, field), getattr(two, field), err_msg=field)
+    assert (two.status == 0).all() and (two.cycle_side != 0).all()
+    # l1 = 2 a / w, 16 a = 16 s (Guckenheimer & Holmes 1983, eq. 3.4.11, from memory)
+    np.testing.assert_allclose(two.l1, 2 * values["s"] / values["w"], rtol=1e-11)
+
+
 def test_fast_and_checked_scalar_paths_agree(normal_form):
     # Python and numpy float64 keywords take the fast path; other numpy scalars, ints and
     # the mapping form take the checked one. The same numbers either way, and each result
@@ -113,8 +145,8 @@ def test_fast_and_checked_scalar_paths_agree(normal_form):
 
 
 def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
-    # Threads share one evaluator (a parameter buffer per thread, a result struct per
-    # call, the GIL released in C): concurrent calls give the serial results exactly.
+    # Threads share one evaluator (a parameter list per call, a result struct per call, the
+    # GIL released in C): concurrent calls give the serial results exactly.
     from concurrent.futures import ThreadPoolExecutor
 
     rng = np.random.default_rng(11)
@@ -123,10 +155,12 @@ def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
     mu = rng.uniform(-0.5, 0.5, 600)
 
     def call(i: int):
-        if i % 3 == 0:  # fast path
+        if i % 4 == 0:  # fast path
             return normal_form(s=float(s[i]), w=float(w[i]))
-        if i % 3 == 1:  # checked path (a mapping), the guesses as start
+        if i % 4 == 1:  # checked path (a mapping), the guesses as start
             return normal_form({"s": s[i], "w": w[i], "mu": mu[i]})
+        if i % 4 == 2:  # fast path, the guesses as start
+            return normal_form(s=s[i], w=w[i], mu=mu[i])
         return normal_form()
 
     serial = [call(i) for i in range(600)]
@@ -141,8 +175,9 @@ def test_scalar_calls_from_many_threads_match_serial_calls(normal_form):
             b.equilibrium,
         )
         # l1 = 2 a / w, 16 a = 16 s (Guckenheimer & Holmes 1983, eq. 3.4.11, from memory)
-        expected = 2 * (s[i] / w[i] if i % 3 != 2 else -1.0 / 2.0)
+        expected = 2 * (s[i] / w[i] if i % 4 != 3 else -1.0 / 2.0)
         assert b.l1 == pytest.approx(expected, rel=1e-11)
+        assert b.search.start_value == (mu[i] if i % 4 in (1, 2) else 0.2)
 
 
 def test_batch_empty_and_scalar_only(normal_form):

@@ -51,21 +51,31 @@ class SearchInfo:
         }
 
 
+class _Extras:
+    """What a result holds besides the C struct: l2 and the derivatives, when computed."""
+
+    __slots__ = ("l2", "radius_gain", "derivatives")
+
+    def __init__(self, derivatives: dict[str, dict] | None = None):
+        self.l2: float | None = None
+        self.radius_gain: dict[str, float] | None = None
+        self.derivatives = derivatives
+
+
+_NEW = object.__new__
+
+NO_EXTRAS = _Extras()
+"""Shared by the results that have no extras (most scalar calls); never written to."""
+
+
 class HopfResult:
     """The outcome for one parameter set (a view on the C result struct it owns).
 
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    __slots__ = (
-        "_raw",
-        "_states",
-        "_bifurcation",
-        "_search",
-        "_l2",
-        "_radius_gain",
-        "_derivatives",
-    )
+    # Four slots, so that the scalar call can make one with four stores (see fresh_result).
+    __slots__ = ("_raw", "_context", "_search", "_extras")
 
     def __init__(
         self,
@@ -77,14 +87,22 @@ class HopfResult:
         derivatives: dict[str, dict] | None = None,
     ):
         self._raw = raw
-        self._states = states
-        self._bifurcation = bifurcation
-        self._derivatives = derivatives
+        self._context = (states, bifurcation)
         # A tuple holds SearchInfo's arguments: the scalar call leaves building it (about
         # as costly as the C call of a small model) to the first reader.
         self._search = search
-        self._l2: float | None = None
-        self._radius_gain: dict[str, float] | None = None
+        self._extras = NO_EXTRAS if derivatives is None else _Extras(derivatives)
+
+    @staticmethod
+    def _fresh(raw: Any, context: tuple[tuple[str, ...], str | None], start: float | None):
+        """The result of a scalar guess-based call: ``context`` is ``(states, bifurcation)``,
+        shared by the evaluator's results; ``start`` the bifurcation parameter's guess."""
+        result = _NEW(HopfResult)  # four stores instead of a call of __init__
+        result._raw = raw
+        result._context = context
+        result._search = ("guess", start)
+        result._extras = NO_EXTRAS
+        return result
 
     @property
     def search(self) -> SearchInfo | None:
@@ -97,30 +115,35 @@ class HopfResult:
 
     def _set_second_coefficient(self, l2: float, radius_gain: dict[str, float]) -> None:
         """Attach l2 (computed on request, or because l1 is degenerate)."""
-        self._l2 = l2
-        self._radius_gain = radius_gain
+        if self._extras is NO_EXTRAS:
+            self._extras = _Extras()
+        self._extras.l2 = l2
+        self._extras.radius_gain = radius_gain
 
     @property
     def l2(self) -> float | None:
         """Second Lyapunov coefficient (None when not computed, NaN when it failed)."""
-        return self._l2
+        return self._extras.l2
 
     @property
     def degenerate_onset(self) -> str | None:
         """At a degenerate point (l1 = 0), the onset l2 decides: 'soft' (l2 < 0) or 'hard'."""
-        if self.criticality != "degenerate" or self._l2 is None or not self._l2 != 0.0:
+        l2 = self._extras.l2
+        if self.criticality != "degenerate" or l2 is None or not l2 != 0.0:
             return None
-        return "soft" if self._l2 < 0.0 else "hard" if self._l2 > 0.0 else None
+        return "soft" if l2 < 0.0 else "hard" if l2 > 0.0 else None
 
     @property
     def cycle_fold(self) -> CycleFold | None:
         """The fold of cycles bounding the jump, when l1 and l2 have opposite signs."""
-        if self._l2 is None or not self.ok or self.criticality == "degenerate":
+        l2 = self._extras.l2
+        if l2 is None or not self.ok or self.criticality == "degenerate":
             return None
-        transversality = self.transversality if self._bifurcation is not None else None
-        critical = self.critical_value if self._bifurcation is not None else None
+        bifurcation = self._context[1]
+        transversality = self.transversality if bifurcation is not None else None
+        critical = self.critical_value if bifurcation is not None else None
         return cycle_fold(
-            self.l1, self._l2, self.omega, transversality, critical, self._radius_gain or {}
+            self.l1, l2, self.omega, transversality, critical, self._extras.radius_gain or {}
         )
 
     @property
@@ -129,7 +152,7 @@ class HopfResult:
         ``{"l1" | "critical_value" | "omega": {parameter: value},
         "equilibrium": {state: {parameter: value}}}`` over the parameters other than the
         bifurcation parameter."""
-        return self._derivatives
+        return self._extras.derivatives
 
     @property
     def status(self) -> str:
@@ -166,16 +189,16 @@ class HopfResult:
 
     @property
     def bifurcation_parameter(self) -> str | None:
-        return self._bifurcation
+        return self._context[1]
 
     @property
     def equilibrium(self) -> dict[str, float]:
-        return {s: self._raw.equilibrium[i] for i, s in enumerate(self._states)}
+        return {s: self._raw.equilibrium[i] for i, s in enumerate(self._context[0])}
 
     @property
     def amplitude(self) -> dict[str, float]:
         """K_j: state j oscillates with amplitude K_j * sqrt(|mu - mu0|) near onset."""
-        return {s: self._raw.amplitude[i] for i, s in enumerate(self._states)}
+        return {s: self._raw.amplitude[i] for i, s in enumerate(self._context[0])}
 
     @property
     def cycle_side(self) -> str | None:
@@ -224,7 +247,7 @@ class HopfResult:
             "l1": _number(self.l1),
             "omega": _number(self.omega),
             "critical_value": _number(self.critical_value),
-            "bifurcation_parameter": self._bifurcation,
+            "bifurcation_parameter": self._context[1],
             "equilibrium": {k: _number(v) for k, v in self.equilibrium.items()},
             "transversality": _number(self.transversality),
             "amplitude": amplitude,
@@ -235,18 +258,19 @@ class HopfResult:
             "stable_side": self.stable_side,
             "search": None if self.search is None else self.search.to_dict(),
         }
-        if self._l2 is not None:
+        if self._extras.l2 is not None:
             fold = self.cycle_fold
-            out["l2"] = _number(self._l2)
+            out["l2"] = _number(self._extras.l2)
             out["degenerate_onset"] = self.degenerate_onset
             out["cycle_fold"] = None if fold is None else fold.to_dict()
         return out
 
     def derivatives_dict(self) -> dict[str, dict[str, float]] | None:
         """The derivatives of l1, the critical value and omega, JSON-ready (None if missing)."""
-        if self._derivatives is None:
+        derivatives = self._extras.derivatives
+        if derivatives is None:
             return None
-        return {q: dict(self._derivatives[q]) for q in ("l1", "critical_value", "omega")}
+        return {q: dict(derivatives[q]) for q in ("l1", "critical_value", "omega")}
 
     def __repr__(self) -> str:
         if not self.ok:
