@@ -13,6 +13,7 @@ import sys
 import sysconfig
 import tempfile
 import time
+from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from functools import lru_cache
 from pathlib import Path
@@ -103,7 +104,9 @@ def _probe(command: tuple[str, ...], flags: list[str], source: str) -> bool:
 
 
 def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[str], bool]:
-    """Which optional flags the compiler accepts: -march=native, -fopenmp."""
+    """Which optional flags the compiler accepts: -march=native, -fopenmp, -fno-split-loops.
+
+    -Werror: a compiler that only warns about a flag it ignores does not get it."""
     compile_flags = list(BASE_FLAGS)
     shared = _shared_flags()
     test_src = "int lyacomp_probe(void) { return 0; }\n"
@@ -112,9 +115,9 @@ def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[st
         "#pragma omp parallel for reduction(+:s)\n"
         "for (int i = 0; i < 4; i++) s += omp_get_thread_num() >= 0;\n return s; }\n"
     )
-    wanted = (["-march=native"] if config.native else []) + (["-fopenmp"] if config.openmp else [])
+    wanted = _wanted_flags(config)
     src = omp_src if config.openmp else test_src
-    if wanted and _probe(command, [*compile_flags, *wanted, *shared], src):
+    if _probe(command, [*compile_flags, *wanted, "-Werror", *shared], src):
         return compile_flags + wanted, config.openmp  # the usual case: one compiler run
     if not _probe(command, [*compile_flags, *shared], test_src):
         raise CompilerNotFoundError(
@@ -128,14 +131,28 @@ def _probe_flags(command: tuple[str, ...], config: BuildConfig) -> tuple[list[st
         openmp = _probe(command, [*compile_flags, "-fopenmp", *shared], omp_src)
     if openmp:
         compile_flags.append("-fopenmp")
+    if _probe(command, [*compile_flags, NO_SPLIT_LOOPS, "-Werror", *shared], test_src):
+        compile_flags.append(NO_SPLIT_LOOPS)
     return compile_flags, openmp
+
+
+def _wanted_flags(config: BuildConfig) -> list[str]:
+    """The optional flags asked for (a compiler that takes them all is the usual case)."""
+    wanted = (["-march=native"] if config.native else []) + (["-fopenmp"] if config.openmp else [])
+    return [*wanted, NO_SPLIT_LOOPS]
 
 
 def _shared_flags() -> list[str]:
     return ["-shared", "-undefined", "dynamic_lookup"] if sys.platform == "darwin" else ["-shared"]
 
 
-_OPTIONAL_FLAGS = ("-march=native", "-fopenmp")
+NO_SPLIT_LOOPS = "-fno-split-loops"
+"""GCC's loop splitting at -O3 copies the loops of the lane blocks (a loop over the lanes
+with a test of the lane index becomes two loops): about a quarter of the compiler's time
+on the benchmark models M2 and M3 (CPU seconds measured with gcc 12), no change measured
+in the per-sample times (benchmarks/run.py --quick). Probed: other compilers may lack it."""
+
+_OPTIONAL_FLAGS = ("-march=native", "-fopenmp", NO_SPLIT_LOOPS)
 
 
 def _probe_record(command: tuple[str, ...], version: str, config: BuildConfig) -> Path:
@@ -152,6 +169,7 @@ def _probe_record(command: tuple[str, ...], version: str, config: BuildConfig) -
             stamp,
             version,
             *BASE_FLAGS,
+            *_OPTIONAL_FLAGS,  # a record from before a flag was added is probed again
             str(config.native),
             str(config.openmp),
             _cpu_identity(),
@@ -175,7 +193,7 @@ def _valid_record(data: object, config: BuildConfig) -> tuple[list[str], bool] |
     optional = flags[len(BASE_FLAGS) :]
     allowed = [
         flag
-        for flag, wanted in zip(_OPTIONAL_FLAGS, (config.native, config.openmp))
+        for flag, wanted in zip(_OPTIONAL_FLAGS, (config.native, config.openmp, True))
         if wanted and flag in optional
     ]
     if optional != allowed or data["openmp"] != ("-fopenmp" in optional):
@@ -227,12 +245,10 @@ def _probe_vector_math(command: tuple[str, ...], flags: list[str]) -> bool:
             return False
 
 
-def _remembered_vector_math(
+def _vector_math_record(
     command: tuple[str, ...], version: str, flags: list[str], config: BuildConfig
-) -> bool:
-    """The vector math probe, remembered next to the flag probe (it depends on the flags)."""
-    if sys.platform != "linux":
-        return False  # libmvec is glibc's
+) -> tuple[Path, bool | None]:
+    """Where the vector math probe for ``flags`` is remembered, and its result if it is."""
     digest = hashlib.sha256("\n".join(flags).encode()).hexdigest()[:16]
     # Not *.json: the flag probe's record stays the one JSON file per toolchain.
     record = _probe_record(command, version, config).with_suffix(f".vecmath-{digest}")
@@ -240,9 +256,29 @@ def _remembered_vector_math(
         found = json.loads(record.read_text(encoding="utf-8")).get("vector_math")
     except (OSError, UnicodeDecodeError, ValueError, AttributeError):
         found = None
-    if isinstance(found, bool):
+    return record, found if isinstance(found, bool) else None
+
+
+def _remembered_vector_math(
+    command: tuple[str, ...],
+    version: str,
+    flags: list[str],
+    config: BuildConfig,
+    ahead: tuple[list[str], Future[bool]] | None = None,
+) -> bool:
+    """The vector math probe, remembered next to the flag probe (it depends on the flags).
+
+    ``ahead``: flags and the probe already running with them (used if they are ``flags``).
+    """
+    if sys.platform != "linux":
+        return False  # libmvec is glibc's
+    record, found = _vector_math_record(command, version, flags, config)
+    if found is not None:
         return found
-    works = _probe_vector_math(command, flags)
+    if ahead is not None and ahead[0] == flags:
+        works = ahead[1].result()
+    else:
+        works = _probe_vector_math(command, flags)
     try:
         record.parent.mkdir(parents=True, exist_ok=True)
         tmp = record.with_suffix(f".{os.getpid()}.tmp")
@@ -251,6 +287,21 @@ def _remembered_vector_math(
     except OSError:
         pass  # an unwritable cache only costs the probe next time
     return works
+
+
+def _vector_math_ahead(
+    command: tuple[str, ...], version: str, config: BuildConfig, pool: ThreadPoolExecutor
+) -> tuple[list[str], Future[bool]] | None:
+    """Start the vector math probe with the flags the flag probe usually finds, so that
+    the two probes of a first build run side by side (None: nothing to probe)."""
+    if not config.vector_math or sys.platform != "linux":
+        return None
+    flags = [*BASE_FLAGS, *_wanted_flags(config)]
+    if config.lanes:
+        flags.append(f"-DLYACOMP_LANES={config.lanes}")
+    if _vector_math_record(command, version, flags, config)[1] is not None:
+        return None
+    return flags, pool.submit(_probe_vector_math, command, flags)
 
 
 def forget_probe(tc: Toolchain, config: BuildConfig) -> None:
@@ -274,12 +325,14 @@ def toolchain(config: BuildConfig) -> Toolchain:
         ) from None
     text = (out.stdout or out.stderr).strip()
     version = text.splitlines()[0] if text else "unknown"
-    compile_flags, openmp, remembered = _remembered_probe(command, version, config)
-    if config.lanes:
-        compile_flags.append(f"-DLYACOMP_LANES={config.lanes}")
-    vector_math = config.vector_math and _remembered_vector_math(
-        command, version, compile_flags, config
-    )
+    with ThreadPoolExecutor(max_workers=1) as pool:
+        ahead = _vector_math_ahead(command, version, config, pool)
+        compile_flags, openmp, remembered = _remembered_probe(command, version, config)
+        if config.lanes:
+            compile_flags.append(f"-DLYACOMP_LANES={config.lanes}")
+        vector_math = config.vector_math and _remembered_vector_math(
+            command, version, compile_flags, config, ahead
+        )
     if vector_math:
         compile_flags.append("-DLYACOMP_MVEC")
     compile_flags.extend(config.extra_flags)
