@@ -38,20 +38,53 @@ def _timed(fn):
     return value, time.perf_counter() - wall, _cpu() - cpu
 
 
+_PHASES = {
+    "derive": ("derive", "derive_higher", "derive_sensitivity"),
+    "lower": ("lower", "lower_higher", "lower_sensitivity"),
+    "render": ("render",),
+    "cc": ("build_extension",),
+}
+"""Where the time of a compile goes: the pipeline's stage functions, timed by wrapping
+them (``cc`` is cffi's wrapper and the C compiler runs, the compiler's CPU included)."""
+
+
+def _time_phases(pipeline) -> dict:
+    """Wrap the stage functions the pipeline calls; returns the totals they fill in."""
+    totals = {name: [0.0, 0.0] for name in _PHASES}
+
+    def timed(phase, fn):
+        def wrapper(*args, **kwargs):
+            value, wall, cpu = _timed(lambda: fn(*args, **kwargs))
+            totals[phase][0] += wall
+            totals[phase][1] += cpu
+            return value
+
+        return wrapper
+
+    for phase, names in _PHASES.items():
+        for name in names:
+            setattr(pipeline, name, timed(phase, getattr(pipeline, name)))
+    return totals
+
+
 def child(path: str) -> None:
     """One cold compile (run in a fresh process, LYACOMP_CACHE_DIR set by the parent)."""
     sys.path.insert(0, str(ROOT))
     import lyacomp
+    from lyacomp import pipeline
     from lyacomp.build import toolchain
     from lyacomp.config import BuildConfig
 
     model = lyacomp.load_model(path)
+    phases = _time_phases(pipeline)
     _, probe_wall, probe_cpu = _timed(lambda: toolchain(BuildConfig.from_environment()))
     ev, wall, cpu = _timed(lambda: lyacomp.compile(model))
+    plain = {name: list(value) for name, value in phases.items()}
     ok = bool(ev().ok)
     twin_wall = twin_cpu = None
     if ev.bifurcation is not None:
         _, twin_wall, twin_cpu = _timed(lambda: ev(derivatives=True))
+    twin = {name: [t - p for t, p in zip(phases[name], plain[name])] for name in phases}
     print(
         json.dumps(
             {
@@ -63,6 +96,8 @@ def child(path: str) -> None:
                 "twin_wall": twin_wall,
                 "twin_cpu": twin_cpu,
                 "nominal_ok": ok,
+                "phases": plain,
+                "twin_phases": twin,
             }
         )
     )
@@ -102,11 +137,13 @@ def main() -> None:
     print(f"load average at start: {os.getloadavg()[0]:.2f}")
     print("| model | compile wall s | compile CPU s | its probe CPU s | twin wall s | twin CPU s |")
     print("|---|---|---|---|---|---|")
+    shown = []
     with tempfile.TemporaryDirectory(prefix="lyacomp-ring-") as work:
         for label in labels:
             runs = [_one(model_path(label, Path(work))) for _ in range(args.repeat)]
             best = min(runs, key=lambda r: r["compile_cpu"])
             twin = min(runs, key=lambda r: r["twin_cpu"] or 0.0)
+            shown.append((label, best, twin))
 
             def fmt(value):
                 return "-" if value is None else f"{value:.2f}"
@@ -116,6 +153,26 @@ def main() -> None:
                 f"{fmt(best['probe_cpu'])} | {fmt(twin['twin_wall'])} | {fmt(twin['twin_cpu'])} |",
                 flush=True,
             )
+        print()
+        print("Phases, wall / CPU s (of the run shown above; cc: cffi and the C compiler):")
+        print()
+        print("| model | build | probe | " + " | ".join(_PHASES) + " |")
+        print("|---|---|---|" + "---|" * len(_PHASES))
+        for label, best, twin in shown:
+            for build, key in (("first", "phases"), ("twin", "twin_phases")):
+                if build == "twin" and twin["twin_wall"] is None:
+                    continue
+                probe = (
+                    f"{best['probe_wall']:.2f} / {best['probe_cpu']:.2f}"
+                    if build == "first"
+                    else "-"
+                )
+                cells = [
+                    f"{w:.2f} / {c:.2f}"
+                    for w, c in (best if build == "first" else twin)[key].values()
+                ]
+                print(f"| {label} | {build} | {probe} | " + " | ".join(cells) + " |")
+    print()
     print(f"load average at end: {os.getloadavg()[0]:.2f}")
 
 

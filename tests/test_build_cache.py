@@ -43,6 +43,32 @@ def test_second_compile_is_a_cache_hit(tmp_path, monkeypatch):
     assert meta["model"] == "cache probe" and meta["compile_seconds"] > 0
 
 
+def test_library_is_the_model_and_a_light_wrapper_linked(tmp_path):
+    # Common practice, no source: a cffi API-mode module exports only its PyInit_ function,
+    # and the model file in the entry is the one `lyacomp emit` writes.
+    config = BuildConfig(cache_dir=tmp_path)
+    ev = pipeline.compile_model(_model(), config=config)
+    entry = tmp_path / ev.key[:2] / ev.key
+    meta = json.loads((entry / "meta.json").read_text())
+    assert "-O3" in meta["flags"] and "-fvisibility=hidden" in meta["flags"]
+    assert "-O1" in meta["wrapper_flags"] and "-O3" not in meta["wrapper_flags"]
+    assert (entry / "model.c").read_text() == lyacomp.generate(
+        _model(), ev.key, variant="plain"
+    ).standalone
+    assert not list(entry.glob("*.o"))  # objects are not kept in the cache
+    if sys.platform == "linux":
+        out = subprocess.run(
+            ["nm", "-D", "--defined-only", str(entry / meta["library"])],
+            capture_output=True,
+            text=True,
+            check=False,
+        )
+        if out.returncode == 0:
+            exported = [line.split()[-1] for line in out.stdout.splitlines() if line.strip()]
+            assert exported == [f"PyInit_{meta['module']}"]
+    assert ev().ok
+
+
 def test_key_changes_with_any_equation_and_with_flags(tmp_path):
     config = BuildConfig(cache_dir=tmp_path)
     base = pipeline.model_key(_model("-1"), config)
