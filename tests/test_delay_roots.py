@@ -144,3 +144,51 @@ def test_unstable_counts_of_random_models_with_long_delays(n):
             counts.append(expected)
     print(counts)
     assert max(counts) >= 6 and len(set(counts)) > 3
+
+
+# --- a second pair near the axis, at a large frequency ------------------------------------------
+# Two uncoupled Wright equations: x(t - 1) at r = pi/2 holds the critical pair +-i pi/2; the
+# second, y' = -a / u y(t - u) (1 + y) with u = pi / (2 * 30), has the characteristic equation
+# lambda u exp(lambda u) = -a, so its roots are W_j(-a) / u (Lambert W as above), and at
+# a = pi/2 its pair is +-30 i (Hassard, Kazarinoff & Wan 1981, for the onset a = pi/2). A
+# small change of a moves that pair off the axis at a frequency twenty times the critical
+# one, near the end of the scanned part of the line: missed by too coarse a scan (the pair
+# turns the phase by pi within a few |Re lambda| of 30 i), or, inside the tolerance band,
+# a second critical pair.
+SECOND_FREQUENCY = 30.0
+
+
+@pytest.fixture(scope="module")
+def two_wright_point() -> lyacomp.Evaluator:
+    model = lyacomp.Model(
+        name="two wright fixed",
+        states={"x": 0.0, "y": 0.0},
+        parameters={"r": PI / 2, "a": PI / 2, "u": PI / (2 * SECOND_FREQUENCY)},
+        equations={"x": "-r * x(t - 1) * (1 + x)", "y": "-a / u * y(t - u) * (1 + y)"},
+    )
+    return lyacomp.compile(model)
+
+
+def _second_roots(a: float, u: float) -> list[complex]:
+    mpmath.mp.dps = 30
+    roots = [mpmath.lambertw(-a, j) / u for j in range(-40, 41)]
+    assert all(abs(z * u * mpmath.exp(z * u) + a) < 1e-20 for z in roots)
+    return [complex(z) for z in roots]
+
+
+@pytest.mark.parametrize("shift", [1e-4, -1e-4, 1e-10, 0.0])
+def test_a_second_pair_near_the_axis_at_a_large_frequency(two_wright_point, shift):
+    u = PI / (2 * SECOND_FREQUENCY)
+    a = PI / 2 * (1 + shift)
+    roots = _second_roots(a, u)
+    near = max(roots, key=lambda z: z.real)
+    assert math.isclose(abs(near.imag), SECOND_FREQUENCY, rel_tol=1e-3)
+    res = two_wright_point(a=a)
+    band = 1e-8 * (PI / 2 + SECOND_FREQUENCY)  # axis_tol times a lower bound of the rate
+    if abs(near.real) < band:
+        assert res.status == "extra_critical_eigenvalue"
+        return
+    assert abs(near.real) > 1e-6  # the pair is clearly off the axis (about 1e-4 here)
+    assert res.status == "ok" and math.isclose(res.omega, PI / 2, rel_tol=1e-12)
+    assert res.unstable_count == sum(z.real > 0 for z in roots)
+    assert res.unstable_count == (2 if shift > 0 else 0)
