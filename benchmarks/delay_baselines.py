@@ -22,7 +22,9 @@ count_beside_pair): the argument principle for g = det Delta / (lambda^2 + omega
 lines Re lambda = +-band, steps h_max = min(Y / 16, 0.5 / tau_max) halved where a step
 turns the phase by more than 0.5 rad or disagrees with the trapezoidal integral of
 Re g'/g, and the exact tail beyond Y = 1.01 max(R, omega) / sin(0.8 pi / (n + 1)). A sample
-is ok when both lines give the same count (no other root within the band).
+is ok when both lines give the same count (no other root within the band); the line +band
+is scanned only when the grid of the line -band needed steps below 1000 band (as in the
+kernel: a root of the band forces steps below about 3 band on that line).
 """
 
 from __future__ import annotations
@@ -43,7 +45,8 @@ MAX_HALVINGS = 40
 
 def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndarray):
     """Roots of g = det Delta / (lambda^2 + omega^2) right of Re lambda = s per sample
-    (-1: not resolved, a root on the line). A is (N, m+1, n, n), tau (N, m)."""
+    (-1: not resolved, a root on the line) and the step of the grid that resolved it.
+    A is (N, m+1, n, n), tau (N, m)."""
     N, _, n, _ = A.shape
     damp = np.exp(-s[:, None] * tau)  # |exp(-lambda tau_k)| on the line
     size = np.abs(A[:, 0]) + np.einsum("nk,nkij->nij", damp, np.abs(A[:, 1:]))
@@ -51,6 +54,7 @@ def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndar
     y_end = 1.01 * np.maximum(bound, omega) / np.sin(0.8 * np.pi / (n + 1))
     h_max = np.minimum(y_end / 16, 0.5 / tau.max(axis=1))
     counts = np.full(N, -1)
+    used = np.zeros(N)
     todo = np.arange(N)
     eye = np.eye(n)
     ng = n - 2
@@ -83,8 +87,9 @@ def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndar
         whole = np.round(count)
         good = smooth & (np.abs(count - whole) < 0.25)
         counts[todo[good]] = whole[good]
+        used[todo[good]] = h[good]
         todo = todo[~smooth]
-    return counts
+    return counts, used
 
 
 def unstable_count(A: np.ndarray, tau: np.ndarray, omega: np.ndarray) -> np.ndarray:
@@ -92,9 +97,42 @@ def unstable_count(A: np.ndarray, tau: np.ndarray, omega: np.ndarray) -> np.ndar
     lies within the band of the axis or the count is not resolved)."""
     norms = np.sqrt(np.einsum("nkij,nkij->n", A, A))
     band = AXIS_TOL * np.maximum(norms, omega)
-    right = _count_on_line(A, tau, omega, band)
-    wide = _count_on_line(A, tau, omega, -band)
+    # As in the kernel (spectrum_context): the line -band first; a root of the band would
+    # have forced steps below about 3 band there, so only samples whose scan needed steps
+    # below 1000 band scan the line +band.
+    wide, used = _count_on_line(A, tau, omega, -band)
+    right = wide.copy()
+    again = ~(used > 1e3 * band)
+    if again.any():
+        right[again] = _count_on_line(A[again], tau[again], omega[again], band[again])[0]
     return np.where((right >= 0) & (right == wide), right, -1)
+
+
+def prediction(solve, nominal: np.ndarray, mu_index: int, z0: np.ndarray) -> np.ndarray:
+    """dz/dp at the nominal Hopf point z0, by central differences of points solved at
+    p +- delta e_k (outside the timing): the first-order start the kernel's warm start
+    uses (templates/delay_locate.c.j2, prepare_prediction; mu is an unknown)."""
+    dz = np.zeros((len(nominal), len(z0)))
+    for k in range(len(nominal)):
+        if k == mu_index:
+            continue
+        delta = 1e-6 * (abs(nominal[k]) if nominal[k] != 0 else 1.0)
+        plus, minus = nominal.copy(), nominal.copy()
+        plus[k] += delta
+        minus[k] -= delta
+        dz[k] = (solve(plus) - solve(minus)) / (2 * delta)
+    return dz
+
+
+def predicted_starts(z0, dz, nominal, params, mu_index) -> np.ndarray:
+    """z0 + dz . (p - p0) per sample, kept (as in the kernel) when it moves no unknown by
+    more than a fifth of its size (1 for an unknown that is zero at z0)."""
+    dp = params - nominal
+    dp[:, mu_index] = 0.0
+    shift = dp @ dz
+    size = np.where(z0 != 0, np.abs(z0), 1.0)
+    keep = np.max(np.abs(shift) / size, axis=1) <= 0.2
+    return z0 + np.where(keep[:, None], shift, 0.0)
 
 
 @dataclass(frozen=True)
@@ -219,10 +257,16 @@ class VectorizedDelayHopf:
         if not ok[0]:
             raise RuntimeError("numpy baseline: Newton failed at the nominal parameters")
         self.start = z[0]
+        self.nominal = nominal.astype(float)
 
-    def _newton(self, p: np.ndarray):
+        def solve(p):
+            return self._newton(p[None, :])[1][0]
+
+        self.dz = prediction(solve, self.nominal, self.ds.mu_index, self.start)
+
+    def _newton(self, p: np.ndarray, starts: np.ndarray | None = None):
         n, N, k = self.ds.n, len(p), self.ds.mu_index
-        z = np.tile(self.start, (N, 1))
+        z = np.tile(self.start, (N, 1)) if starts is None else starts.copy()
         p = p.copy()
         c = np.tile(self.c, (N, 1))
         done = np.zeros(N, dtype=bool)
@@ -244,7 +288,8 @@ class VectorizedDelayHopf:
         """All samples at once; ``params`` is (N, m) in model order (mu column ignored)."""
         ds = self.ds
         n, N = ds.n, len(params)
-        ok, z = self._newton(params.astype(float))
+        starts = predicted_starts(self.start, self.dz, self.nominal, params, ds.mu_index)
+        ok, z = self._newton(params.astype(float), starts)
         p = params.astype(float, copy=True)
         p[:, ds.mu_index] = z[:, n]
         out = {
@@ -369,8 +414,14 @@ class LoopDelayHopf:
         if not ok:
             raise RuntimeError("scipy loop baseline: fsolve failed at the nominal parameters")
         self.start = z
+        self.nominal = nominal.astype(float)
 
-    def _root(self, p: np.ndarray):
+        def solve(p):  # tight, so that the differences resolve the derivative
+            return self._root(p, xtol=1e-13)[1]
+
+        self.dz = prediction(solve, self.nominal, self.ds.mu_index, self.start)
+
+    def _root(self, p: np.ndarray, start: np.ndarray | None = None, xtol: float = 1.49012e-08):
         n, k = self.n, self.ds.mu_index
 
         def residual(z):
@@ -378,13 +429,15 @@ class LoopDelayHopf:
             return np.array(self.G(*z[:n], *p, *z[n + 1 :], *self.c), dtype=float)
 
         # scipy's default tolerance, as most users leave it
-        z, _, flag, _ = scipy.optimize.fsolve(residual, self.start, full_output=True)
+        z0 = self.start if start is None else start
+        z, _, flag, _ = scipy.optimize.fsolve(residual, z0, full_output=True, xtol=xtol)
         return flag == 1 and z[3 * n + 1] > 0, z
 
     def solve_one(self, params: np.ndarray) -> dict:
         ds, n, m = self.ds, self.n, self.ds.m
         p = params.astype(float, copy=True)
-        ok, z = self._root(p)
+        start = predicted_starts(self.start, self.dz, self.nominal, p[None, :], ds.mu_index)
+        ok, z = self._root(p, start[0])
         if not ok:
             return {"ok": False}
         p[ds.mu_index] = z[n]
