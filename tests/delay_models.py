@@ -15,6 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+import lyacomp
+
 
 @dataclass(frozen=True)
 class RandomDelayModel:
@@ -89,3 +91,16 @@ def random_delay_model(seed: int, n: int, two_delays: bool) -> RandomDelayModel:
 def as_lyacomp_text(model: RandomDelayModel) -> dict[str, str]:
     """The equations exactly as lyacomp reads them (the delay text in parentheses)."""
     return {s: re.sub(r"\s+", " ", e) for s, e in model.equations.items()}
+
+
+def wright_model(name: str, parameters: dict[str, float], delay: str = "tau", **extra):
+    """Wright's equation x' = -r x(t - delay) (1 + x) as a lyacomp model (its Hopf points of
+    x = 0 at r delay = pi/2 + 2 pi k, omega = r; Hassard, Kazarinoff & Wan, Theory and
+    Applications of Hopf Bifurcation, Cambridge 1981, for the first)."""
+    return lyacomp.Model(
+        name=name,
+        states={"x": 0.0},
+        parameters=parameters,
+        equations={"x": f"-r * x(t - {delay}) * (1 + x)"},
+        **extra,
+    )

@@ -21,6 +21,7 @@ from lyacomp.runtime.evaluator import DELAY_DEGENERATE, DELAY_DERIVATIVES, DELAY
 from lyacomp.studies.maps import DELAY_TRACE_NOTE, find_switches, parameter_map
 from lyacomp.studies.robustness import DELAY_FORM_NOTE, off_nominal_branch, run_robustness
 from lyacomp.studies.uncertainty import parse_uncertainty
+from tests.delay_models import wright_model
 
 BURNER = Path(__file__).resolve().parent.parent / "examples" / "lagged_burner.toml"
 
@@ -33,14 +34,7 @@ WRIGHT_L1 = -2 * (3 * math.pi - 2) / (5 * (4 + math.pi**2))
 
 @pytest.fixture(scope="module")
 def wright():
-    model = lyacomp.Model(
-        name="wright parity",
-        states={"x": 0.0},
-        parameters={"r": 1.2, "tau": 1.0},
-        equations={"x": "-r*x(t - tau)*(1 + x)"},
-        bifurcation="r",
-    )
-    return lyacomp.compile(model)
+    return lyacomp.compile(wright_model("wright parity", {"r": 1.2, "tau": 1.0}, bifurcation="r"))
 
 
 @pytest.fixture(scope="module")

@@ -10,7 +10,7 @@ from pathlib import Path
 import pytest
 
 import lyacomp
-from tests.delay_models import random_delay_model
+from tests.delay_models import random_delay_model, wright_model
 from tests.reference.mp_delay import MpDelay, chebyshev_unstable_count
 
 RTOL = 1e-9
@@ -32,14 +32,7 @@ WRIGHT_L1 = -2 * (3 * PI - 2) / (5 * (4 + PI**2))
 
 
 def _wright(**extra) -> lyacomp.Evaluator:
-    model = lyacomp.Model(
-        name="wright",
-        states={"x": 0.0},
-        parameters={"r": 1.4, "tau": 1.0},
-        equations={"x": "-r * x(t - tau) * (1 + x)"},
-        **extra,
-    )
-    return lyacomp.compile(model)
+    return lyacomp.compile(wright_model("wright", {"r": 1.4, "tau": 1.0}, **extra))
 
 
 def test_wright_equation_closed_forms():
@@ -65,15 +58,7 @@ def test_wright_equation_against_the_independent_reference():
 def test_wright_equation_with_the_delay_as_bifurcation_parameter():
     # r fixed at 1: onset at tau = pi/2 with omega = 1 (Hassard, Kazarinoff & Wan 1981: the
     # condition is r tau = pi/2); d and l1 from the independent reference.
-    ev = lyacomp.compile(
-        lyacomp.Model(
-            name="wright tau",
-            states={"x": 0.0},
-            parameters={"r": 1.0, "tau": 1.4},
-            equations={"x": "-r * x(t - tau) * (1 + x)"},
-            bifurcation="tau",
-        )
-    )
+    ev = lyacomp.compile(wright_model("wright tau", {"r": 1.0, "tau": 1.4}, bifurcation="tau"))
     res = ev()
     ref = MpDelay(["x"], {"r": 1.0, "tau": 1.5}, ["-r*x__1*(1 + x)"], ["tau"]).solve(
         "tau", {"tau": 1.5}, [0.0], 1.0

@@ -12,38 +12,10 @@ import numpy as np
 import pytest
 
 import lyacomp
-from tests.delay_models import random_delay_model
+from tests.delay_models import random_delay_model, wright_model
+from tests.reference.mp_delay import collocation_roots
 
 PI = math.pi
-
-
-def collocation_roots(blocks: list[np.ndarray], taus: list[float], points: int) -> np.ndarray:
-    """Eigenvalues of the Chebyshev collocation of the infinitesimal generator on
-    [-tau_max, 0] (Breda, Maset & Vermiglio, SIAM J. Sci. Comput. 27, 2005; the
-    differentiation matrix of Trefethen, Spectral Methods in MATLAB, SIAM 2000, cheb.m).
-    Rows 1..M: d/dtheta at the nodes; row 0: the equation A0 u(0) + sum_k A_k u(-tau_k),
-    u(-tau_k) by barycentric interpolation when -tau_k is not a node."""
-    n, tau_max = blocks[0].shape[0], max(taus)
-    k = np.arange(points + 1)
-    nodes = np.cos(PI * k / points)  # x_0 = 1 (theta = 0) ... x_M = -1 (theta = -tau_max)
-    c = np.where((k == 0) | (k == points), 2.0, 1.0) * (-1.0) ** k
-    dmat = np.outer(c, 1.0 / c) / (nodes[:, None] - nodes[None, :] + np.eye(points + 1))
-    dmat -= np.diag(dmat.sum(axis=1))
-    dmat *= 2.0 / tau_max
-    weights = (-1.0) ** k * np.where((k == 0) | (k == points), 0.5, 1.0)
-    gen = np.zeros((n * (points + 1), n * (points + 1)))
-    gen[:n, :n] += blocks[0]
-    for a_k, tau in zip(blocks[1:], taus, strict=True):
-        x = 2.0 * (-tau) / tau_max + 1.0
-        hit = np.abs(x - nodes) < 1e-14
-        if hit.any():
-            row = hit.astype(float)
-        else:
-            w = weights / (x - nodes)
-            row = w / w.sum()
-        gen[:n, :] += np.kron(row[None, :], a_k)
-    gen[n:, :] = np.kron(dmat[1:, :], np.eye(n))
-    return np.linalg.eigvals(gen)
 
 
 def collocation_count(blocks, taus, points: int = 200, threshold: float = 1e-6) -> int:
@@ -76,13 +48,7 @@ def _wright_count(r: float) -> int:
 @pytest.fixture(scope="module")
 def wright_point() -> lyacomp.Evaluator:
     # No bifurcation parameter: the point itself is classified (it is a Hopf point).
-    model = lyacomp.Model(
-        name="wright fixed",
-        states={"x": 0.0},
-        parameters={"r": 1.5},
-        equations={"x": "-r * x(t - 1) * (1 + x)"},
-    )
-    return lyacomp.compile(model)
+    return lyacomp.compile(wright_model("wright fixed", {"r": 1.5}, delay="1"))
 
 
 @pytest.mark.parametrize("crossing", [0, 1, 2, 3, 5])
@@ -104,13 +70,7 @@ def test_wright_equation_with_the_delay_as_bifurcation_parameter_just_above_the_
     # (the scaled equation lambda + r tau exp(-lambda) = 0 at r tau = pi/2; Hassard,
     # Kazarinoff & Wan 1981 for the condition r tau = pi/2).
     r = PI / 2 * (1 + 1e-3)
-    model = lyacomp.Model(
-        name="wright tau free",
-        states={"x": 0.0},
-        parameters={"r": r, "tau": 0.9},
-        equations={"x": "-r * x(t - tau) * (1 + x)"},
-        bifurcation="tau",
-    )
+    model = wright_model("wright tau free", {"r": r, "tau": 0.9}, bifurcation="tau")
     res = lyacomp.compile(model)()
     assert res.status == "ok" and math.isclose(res.critical_value, PI / (2 * r), rel_tol=1e-12)
     assert res.unstable_count == 0 == _wright_count(r * res.critical_value * (1 - 1e-9))

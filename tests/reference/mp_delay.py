@@ -252,42 +252,41 @@ class MpDelay:
         return mpmath.re(c1) / omega, q
 
 
-def chebyshev_unstable_count(blocks, taus, points: int = 60, threshold: float = 1e-6) -> int:
-    """Eigenvalues with Re > threshold of a Chebyshev collocation of the generator of the
-    solution semigroup (Breda, Maset & Vermiglio, SIAM J. Sci. Comput. 27, 2005), for
-    real matrices ``blocks = [A0, A1, ...]`` (numpy) and delays ``taus``. The critical
-    pair (Re ~ 0) is not counted."""
+def collocation_roots(blocks, taus, points: int):
+    """Eigenvalues of the Chebyshev collocation of the infinitesimal generator of the
+    solution semigroup on [-tau_max, 0] (Breda, Maset & Vermiglio, SIAM J. Sci. Comput. 27,
+    2005; the differentiation matrix of Trefethen, Spectral Methods in MATLAB, SIAM 2000,
+    cheb.m), for real matrices ``blocks = [A0, A1, ...]`` (numpy) and delays ``taus``.
+    Rows 1..M: d/dtheta at the nodes; row 0: the equation A0 u(0) + sum_k A_k u(-tau_k),
+    u(-tau_k) by barycentric interpolation when -tau_k is not a node."""
     import numpy as np
 
-    n = blocks[0].shape[0]
-    tau_max = max(taus)
+    n, tau_max = blocks[0].shape[0], max(taus)
     k = np.arange(points + 1)
-    nodes = np.cos(np.pi * k / points)  # Chebyshev points on [-1, 1], from 1 to -1
+    nodes = np.cos(np.pi * k / points)  # x_0 = 1 (theta = 0) ... x_M = -1 (theta = -tau_max)
     c = np.where((k == 0) | (k == points), 2.0, 1.0) * (-1.0) ** k
-    diff = nodes[:, None] - nodes[None, :] + np.eye(points + 1)
-    dmat = np.outer(c, 1.0 / c) / diff
+    dmat = np.outer(c, 1.0 / c) / (nodes[:, None] - nodes[None, :] + np.eye(points + 1))
     dmat -= np.diag(dmat.sum(axis=1))
-    dmat *= 2.0 / tau_max  # d/dtheta
-
-    def lagrange_row(t):
-        # Barycentric interpolation weights at theta = t.
-        x = 2.0 * t / tau_max + 1.0
-        if np.any(np.isclose(x, nodes, atol=1e-15)):
-            row = np.isclose(x, nodes, atol=1e-15).astype(float)
-            return row
-        bary = (-1.0) ** k * np.where((k == 0) | (k == points), 0.5, 1.0)
-        w = bary / (x - nodes)
-        return w / w.sum()
-
-    size = n * (points + 1)
-    gen = np.zeros((size, size))
+    dmat *= 2.0 / tau_max
+    weights = (-1.0) ** k * np.where((k == 0) | (k == points), 0.5, 1.0)
+    gen = np.zeros((n * (points + 1), n * (points + 1)))
     gen[:n, :n] += blocks[0]
-    for a_k, t in zip(blocks[1:], taus):
-        row = lagrange_row(-t)
-        for j in range(points + 1):
-            gen[:n, j * n : (j + 1) * n] += a_k * row[j]
-    for i in range(1, points + 1):
-        for j in range(points + 1):
-            gen[i * n : (i + 1) * n, j * n : (j + 1) * n] = dmat[i, j] * np.eye(n)
-    values = np.linalg.eigvals(gen)
-    return int(np.sum(values.real > threshold))
+    for a_k, tau in zip(blocks[1:], taus, strict=True):
+        x = 2.0 * (-tau) / tau_max + 1.0
+        hit = np.abs(x - nodes) < 1e-14
+        if hit.any():
+            row = hit.astype(float)
+        else:
+            w = weights / (x - nodes)
+            row = w / w.sum()
+        gen[:n, :] += np.kron(row[None, :], a_k)
+    gen[n:, :] = np.kron(dmat[1:, :], np.eye(n))
+    return np.linalg.eigvals(gen)
+
+
+def chebyshev_unstable_count(blocks, taus, points: int = 60, threshold: float = 1e-6) -> int:
+    """Eigenvalues with Re > threshold of the collocation above (``collocation_roots``).
+    The critical pair (Re ~ 0) is not counted."""
+    import numpy as np
+
+    return int(np.sum(collocation_roots(blocks, taus, points).real > threshold))
