@@ -154,7 +154,8 @@ def count_kernel(
     """Per-sample operation counts of the kernel emitted for ``ev``'s model over ``samples``.
 
     ``batch``: one ``<prefix>_evaluate_batch`` call on one thread over all samples (the lane
-    path of two- and three-state models) instead of one ``<prefix>_evaluate`` per sample.
+    path of two- and three-state models, built one lane wide: the work of the samples, not
+    of lanes that run on masked out) instead of one ``<prefix>_evaluate`` per sample.
     """
     import lyacomp
 
@@ -174,6 +175,8 @@ def count_kernel(
         nominal = np.array([ev.nominal[k] for k in ev.parameters], dtype="<f8")
         nominal.tofile(work / "nominal.bin")
         base = [*compiler, *[f for f in flags if f != "-fPIC"], f"-DPREFIX={prefix}", "-I."]
+        # The batch's useful work: lanes one wide, so that no masked-out lane is counted.
+        base += ["-DLYACOMP_LANES=1"] if batch else []
 
         def run(*args: str) -> str:
             done = subprocess.run([*args], cwd=work, capture_output=True, text=True)
@@ -270,13 +273,30 @@ def count_executed(ev, samples: np.ndarray, flags: list[str], compiler: list[str
     """Flops per sample of one ``<prefix>_evaluate_batch`` call (one thread) counted from
     the executed instructions: callgrind's per-instruction counts against objdump's
     disassembly (packed: 2/4 per instruction by register width, FMA twice). The check of
-    :func:`count_kernel`, whose block counts gcc estimates where it copied code."""
+    :func:`count_kernel`, whose block counts gcc estimates where it copied code.
+
+    ``flops_per_sample`` is the useful work: the lane code built one lane wide, so that no
+    lane computes on after its sample has converged or left (in wider lanes a block runs
+    until its slowest lane is done, and that work is not the sample's). The count of the
+    same code four lanes wide, masked-out lanes included, is kept beside it as
+    ``executed_4_lanes``."""
+    one = _count_executed(ev, samples, flags, compiler, 1)
+    four = _count_executed(ev, samples, flags, compiler, 4)
+    one["method"] += "; the lane code one lane wide (no work of masked-out lanes)"
+    one["executed_4_lanes"] = four
+    return one
+
+
+def _count_executed(
+    ev, samples: np.ndarray, flags: list[str], compiler: list[str], lanes: int
+) -> dict:
+    """:func:`count_executed` with the lane code ``lanes`` wide."""
     import lyacomp
 
     model, prefix = ev.model, prefix_of(ev)
     sources = lyacomp.generate(model, prefix=prefix, header_name="model.h", variant="plain")
     own = [f for f in flags if f not in ("-fPIC", "-DLYACOMP_MVEC", "-fopenmp")]
-    defines = [f"-DPREFIX={prefix}", "-DBATCH", "-I."]
+    defines = [f"-DPREFIX={prefix}", "-DBATCH", "-I.", f"-DLYACOMP_LANES={lanes}"]
     defines.append(f"-DEVALUATE_ARGS={_c_arguments(ev, f'{prefix}_evaluate', 'row')}")
     if "start" in argument_roles(ev, f"{prefix}_evaluate"):
         prepare = _c_arguments(ev, f"{prefix}_prepare_start", "nominal")
@@ -323,7 +343,8 @@ def count_executed(ev, samples: np.ndarray, flags: list[str], compiler: list[str
         totals["divisions"] += width * executed if kind == "div" else 0
         totals["sqrt"] += width * executed if kind == "sqrt" else 0
     return {
-        "method": "callgrind per-instruction counts, 4 lanes (valgrind has no AVX-512), libm",
+        "method": f"callgrind per-instruction counts, {lanes} lane(s) (valgrind: no AVX-512), libm",
+        "lanes": lanes,
         "samples": rows,
         "flops_per_sample": totals["flops"] / rows,
         "divisions_per_sample": totals["divisions"] / rows,
