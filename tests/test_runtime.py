@@ -29,7 +29,8 @@ def normal_form():
 def test_scalar_call_and_dict(normal_form, documented_keys):
     r = normal_form(s=1.0, w=4.0)
     assert r.ok and r.status == "ok"
-    # l1 = 2 s / w for this form under math.md's normalization (math.md, planar check).
+    # l1 = 2 s / w for this form: the planar formula (Guckenheimer & Holmes 1983, eq. 3.4.11,
+    # number from memory) under the normalization of docs/mathematics.md.
     assert r.l1 == pytest.approx(0.5, rel=1e-13)
     d = r.to_dict()
     assert set(d) == documented_keys
