@@ -1,11 +1,11 @@
-"""Baseline B1: the math of math.md written directly in numpy over arrays of samples.
+"""Baseline B1: the math of docs/mathematics.md written directly in numpy over arrays of samples.
 
 This is what a skilled Python user would write: lambdified derivatives evaluated on whole
 arrays, complex numpy arrays, batched ``numpy.linalg.solve``, and a batched Newton solve for
 the Hopf point, warm-started from the nominal Hopf point (computed once, outside the timing).
 The Hopf point uses closed forms when the model gives them; otherwise Newton on
 (F = 0, trace J = 0) for n = 2, (F = 0, c1*c2 - c0 = 0) for n = 3 (Routh-Hurwitz), and the
-augmented system (x, mu, v_r, v_i, omega) of math.md for larger n.
+augmented system (x, mu, v_r, v_i, omega) of docs/mathematics.md for larger n.
 """
 
 from __future__ import annotations

@@ -3,7 +3,8 @@
 For each sample: ``scipy.optimize.root`` finds the Hopf point from (F = 0, largest real part
 of the eigenvalues of J = 0) (closed forms instead when the model gives them),
 ``numpy.linalg.eig`` gives omega and the eigenvectors of J and J^T, lambdified derivatives
-give B and C, and ``numpy.linalg.solve`` the two linear systems of the l1 formula (math.md).
+give B and C, and ``numpy.linalg.solve`` the two linear systems of the l1 formula
+(docs/mathematics.md).
 Each sample starts from the nominal Hopf point, computed once outside the timing.
 """
 
@@ -61,7 +62,7 @@ class LoopHopf:
         return bool(sol.success), sol.x
 
     def solve_one(self, params: np.ndarray) -> dict:
-        """All quantities of math.md for one sample (NaN where it fails)."""
+        """All quantities of docs/mathematics.md for one sample (NaN where it fails)."""
         n, k = self.hs.n, self.hs.mu_index
         p = params.astype(float, copy=True)
         if self.closed is not None:

@@ -16,7 +16,7 @@ def planar_check() -> dict:
 
     Source: Guckenheimer & Holmes, Nonlinear Oscillations, Dynamical Systems, and Bifurcations
     of Vector Fields, Springer 1983, eq. 3.4.11 (equation number from memory, as in
-    shared/math.md), with l1 = 2 a / omega in lyacomp's normalization.
+    docs/mathematics.md), with l1 = 2 a / omega in lyacomp's normalization.
     """
     import lyacomp
 

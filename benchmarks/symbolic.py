@@ -2,7 +2,7 @@
 
 Both baselines start from the same sympy right-hand side that lyacomp compiles
 (``model.symbolic()``), so they differ from lyacomp only in how the numbers are computed.
-The multilinear forms B and C of math.md are built as directional expressions from the
+The multilinear forms B and C of docs/mathematics.md are built as directional expressions from the
 non-zero second and third derivative entries only, as a careful user would.
 """
 
@@ -78,7 +78,8 @@ def _routh_hurwitz_3(J: sympy.Matrix) -> sympy.Expr:
 
 
 def derive(states, parameters, rhs, bifurcation: str) -> HopfSymbols:
-    """Derive the symbolic pieces of math.md for a model with a bifurcation parameter."""
+    """Derive the symbolic pieces of docs/mathematics.md for a model with a bifurcation
+    parameter."""
     x = tuple(states)
     p = tuple(parameters)
     names = [str(s) for s in p]

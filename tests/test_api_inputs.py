@@ -50,7 +50,7 @@ def normal_form():
     ],
 )
 def test_real_scalars_are_accepted_alike(normal_form, value):
-    # l1 = 2 s / w for this form (math.md, planar check), w = 2 at nominal values.
+    # l1 = 2 s / w for this form (docs/mathematics.md, planar check), w = 2 at nominal values.
     expected = float(value)
     assert normal_form({"s": value}).l1 == pytest.approx(expected, rel=1e-12)
     b = normal_form.batch({"s": value})
@@ -184,7 +184,7 @@ def test_keyword_names_as_states(keyword_states):
         assert moved.state_guess[name] == 0.25
         assert ev.with_guess({name: 0.25}).state_guess == moved.state_guess
         r = moved()
-        # l1 = 2 s / w (math.md, planar check): -1 at nominal values
+        # l1 = 2 s / w (docs/mathematics.md, planar check): -1 at nominal values
         assert r.ok and r.l1 == pytest.approx(-1.0, rel=1e-10)
         assert set(r.equilibrium) == set(KEYWORDS)
     relaxed = ev.with_guess(self=0.05).with_tolerances(degenerate_atol=1e-30)
@@ -230,7 +230,7 @@ def test_keyword_names_through_the_maps(keyword_parameters):
     from lyacomp.studies.maps import Axis, find_switches, parameter_map
 
     ev = keyword_parameters
-    # l1 = 2 params / w changes sign at params = 0 (math.md, planar check)
+    # l1 = 2 params / w changes sign at params = 0 (docs/mathematics.md, planar check)
     fixed = {"threads": 1.5, "tolerances": 0.25}
     switches = find_switches(ev, "params", -1.0, 1.0, n=8, fixed=fixed)
     assert len(switches) == 1 and switches[0].value == pytest.approx(0.0, abs=1e-12)

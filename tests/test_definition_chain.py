@@ -4,7 +4,7 @@ Two references: sympy's own differentiation of the model with the definitions su
 (every derivative entry the kernels use, up to fifth order and the parameter derivatives),
 and the independent 40-digit mpmath Hopf reference of tests/reference/mp_hopf.py on the
 substituted equations (Kuznetsov, Elements of Applied Bifurcation Theory, 3rd ed. 2004,
-Ch. 3, conventions of /work/shared/math.md).
+Ch. 3, conventions of docs/mathematics.md).
 """
 
 from __future__ import annotations

@@ -27,7 +27,7 @@ def _close(a: float, b: float, rtol: float = RTOL) -> bool:
 # supercritical, l1 = -2 (3 pi - 2) / (5 (4 + pi^2)) in our normalization, d = 2 pi/(4 + pi^2),
 # cycle amplitude^2 ~ 40 (r - pi/2) / (3 pi - 2) (Hassard, Kazarinoff & Wan, Theory and
 # Applications of Hopf Bifurcation, Cambridge 1981, the Wright example; Chow & Mallet-Paret
-# 1977; the exact constants are those of /work/shared/math.md, from memory of the book).
+# 1977; the exact constants are those of docs/mathematics.md, from memory of the book).
 WRIGHT_L1 = -2 * (3 * PI - 2) / (5 * (4 + PI**2))
 
 
@@ -72,7 +72,7 @@ def test_wright_equation_with_the_delay_as_bifurcation_parameter():
 # --- Hutchinson's delayed logistic equation ---------------------------------------------------
 # N'(t) = r N(t) (1 - N(t - 1)/K) becomes Wright's equation under N = K (1 + x) (Hutchinson,
 # Ann. N.Y. Acad. Sci. 50, 1948; the change of variables is common practice). States scaled
-# by K: l1_N = l1_x / K^2 (math.md, linear change of states), amplitudes times K.
+# by K: l1_N = l1_x / K^2 (docs/mathematics.md, linear change of states), amplitudes times K.
 @pytest.mark.parametrize("capacity", [2.5, 40.0])
 def test_hutchinson_equation_is_wright_with_scaled_l1(capacity):
     ev = lyacomp.compile(
@@ -132,7 +132,8 @@ def test_turning_chatter_is_subcritical_along_the_stability_boundary(tau):
 )
 def test_a_delay_term_with_zero_coefficient_gives_the_ode_values(name):
     # A_k = 0 and every delayed derivative vanishes: Delta(lambda) = lambda I - A, so the
-    # characteristic-matrix formulas must reduce to the ODE ones (math.md, Delay equations).
+    # characteristic-matrix formulas must reduce to the ODE ones (docs/mathematics.md, Delay
+    # equations).
     ode = lyacomp.load_model(EXAMPLES / name)
     first = ode.state_names[0]
     equations = dict(ode.equations)

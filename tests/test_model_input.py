@@ -192,7 +192,7 @@ def test_sympy_expressions_are_accepted():
         bifurcation="mu",
     )
     r = lyacomp.compile(m)()
-    # Normal form with cubic coefficient -1, omega = 1: l1 = 2*(-1)/1 (math.md).
+    # Normal form with cubic coefficient -1, omega = 1: l1 = 2*(-1)/1 (docs/mathematics.md).
     assert r.l1 == pytest.approx(-2.0, rel=1e-12)
     with pytest.raises(ModelError, match="unknown symbol"):
         lyacomp.Model(

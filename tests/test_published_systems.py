@@ -122,7 +122,8 @@ def test_lorenz_symmetry_and_other_parameters(lorenz_reference):
 #   x' = A - (B + 1) x + x^2 y,  y' = B x - x^2 y,  equilibrium (A, B/A),
 # Jacobian [[B - 1, A^2], [-B, -A^2]] with trace B - 1 - A^2 and determinant A^2, so the Hopf
 # point is B = 1 + A^2 with omega = A and Re lambda = (B - 1 - A^2)/2, i.e. d = 1/2.
-# Closed form of l1 under math.md's normalization, derived for this test (not published):
+# Closed form of l1 under the normalization of docs/mathematics.md, derived for this test
+# (not published):
 # with T = [[1, A], [0, -(1 + A^2)/A]] the change x = x0 + T u brings the linear part to
 # [[0, -A], [A, 0]]; the planar formula of Guckenheimer & Holmes 1983 (eq. 3.4.11, number
 # from memory) on the transformed field gives a = -(A^2 + 1)(A^2 + 2)/(8 A^2), so

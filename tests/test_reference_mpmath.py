@@ -2,7 +2,7 @@
 
 Reference: tests/reference/mp_hopf.py (sympy derivatives + mpmath; the projection formulas of
 Kuznetsov, Elements of Applied Bifurcation Theory, 3rd ed. 2004, Chapter 3, as written in
-/work/shared/math.md; Hopf point located by a determinant condition, not lyacomp's system).
+docs/mathematics.md; Hopf point located by a determinant condition, not lyacomp's system).
 
 The random models have a Hopf point by construction: at the equilibrium ``xe`` and ``mu = m0``
 the linear part is ``S diag([[0, -w], [w, 0]], D) S^-1`` with ``D`` stable, ``mu`` enters the
@@ -213,7 +213,7 @@ def family_setup(request):
 
 def test_batch_matches_mpmath_reference(family_setup):
     # Source: independent 40-digit reference (mpmath + sympy), projection formula of
-    # Kuznetsov 2004, Ch. 3, conventions of /work/shared/math.md.
+    # Kuznetsov 2004, Ch. 3, conventions of docs/mathematics.md.
     family, _, draws, evaluator = family_setup
     names = evaluator.parameters
     batch = evaluator.batch({k: np.array([v[k] for v, _ in draws]) for k in names})
@@ -246,7 +246,8 @@ def test_batch_matches_mpmath_reference(family_setup):
                 batch.amplitude[row, j],
                 expected,
             )
-        # Criticality and cycle side follow from the signs (math.md; common practice, no source).
+        # Criticality and cycle side follow from the signs (docs/mathematics.md; common
+        # practice, no source).
         expected_code = (
             lyacomp.Criticality.SUPERCRITICAL if ref.l1 < 0 else lyacomp.Criticality.SUBCRITICAL
         )
@@ -271,8 +272,9 @@ def test_single_call_matches_mpmath_reference(family_setup):
 
 
 def test_reference_transversality_equals_eigenvalue_slope(family_setup):
-    # Checks the reference itself two ways: the projection formula for d (math.md) against
-    # Re d(lambda)/d(mu) by numerical differentiation along the equilibrium branch (mpmath.diff).
+    # Checks the reference itself two ways: the projection formula for d (docs/mathematics.md)
+    # against Re d(lambda)/d(mu) by numerical differentiation along the equilibrium branch
+    # (mpmath.diff).
     _, reference, draws, _ = family_setup
     values, ref = draws[-1]
     slope = reference.eigenvalue_slope(ref, values)

@@ -1,7 +1,7 @@
 """High-precision reference for the first and second Lyapunov coefficients, by series.
 
 An independent route to ``c1`` and ``c2`` of the normal form
-``w' = i omega w + c1 w|w|^2 + c2 w|w|^4`` (the normalization of /work/shared/math.md:
+``w' = i omega w + c1 w|w|^2 + c2 w|w|^4`` (the normalization of docs/mathematics.md:
 ``x = x0 + w q + conj(w q) + ...``, ``<q, q> = 1``, ``<p, q> = 1``, ``l1 = Re c1 / omega``,
 ``l2 = Re c2 / omega``). It uses no multilinear forms and no symbolic derivatives:
 the right-hand side is evaluated *on truncated power series* in ``(w, conj w)`` and the
@@ -13,7 +13,7 @@ is solved coefficient by coefficient (own derivation from the chain rule; the me
 the one of Kuznetsov, Elements of Applied Bifurcation Theory, 3rd ed. 2004, Ch. 8, used
 here in its series form). Coefficients ``w^j conj(w)^k`` with ``j <= 3`` and ``k <= 2``
 suffice for ``c2`` and form a closed truncation (products never move an index down).
-``h21`` is fixed by ``<p, h21> = 0`` as in math.md. The Hopf point itself (x0, mu0,
+``h21`` is fixed by ``<p, h21> = 0`` as in docs/mathematics.md. The Hopf point itself (x0, mu0,
 omega, q, p) comes from tests/reference/mp_hopf.py, which shares no code with lyacomp.
 """
 

@@ -9,7 +9,7 @@ for ``(x, mu, w)``: a damped Newton iteration in double precision (central-diffe
 Jacobian), then ``mpmath.findroot`` at 40 significant digits. Eigenvectors come from
 ``mpmath.eig`` (right and left); every derivative comes from ``sympy.diff``. The first
 Lyapunov coefficient, transversality and amplitude coefficients follow the projection
-formulas of /work/shared/math.md (Kuznetsov, Elements of Applied Bifurcation Theory,
+formulas of docs/mathematics.md (Kuznetsov, Elements of Applied Bifurcation Theory,
 3rd ed. 2004, Chapter 3) with ``<q, q> = 1`` and ``<p, q> = 1``.
 """
 
@@ -53,7 +53,7 @@ class MpHopfPoint:
 
 
 def _inner(u: Sequence, v: Sequence):
-    """<u, v> = sum conj(u_i) v_i (conjugate-linear in the first slot, as in math.md)."""
+    """<u, v> = sum conj(u_i) v_i (conjugate-linear in the first slot, docs/mathematics.md)."""
     return mpmath.fsum(mpmath.conj(a) * b for a, b in zip(u, v, strict=True))
 
 

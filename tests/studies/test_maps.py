@@ -19,9 +19,10 @@ from lyacomp.studies.maps import Axis, PointClass, classify, find_switches, para
 # The model: a Hopf normal form with frequency w, onset at mu = m, and quadratic terms
 # a x^2 (first equation) and b x^2 (second). With f = a x^2 + s x r^2, g = b x^2 + s y r^2,
 # Guckenheimer & Holmes (1983) eq. 3.4.11 (equation number from memory), as written in
-# math.md, gives 16 A = f_xxx + f_xyy + g_xxy + g_yyy + (1/w)(-f_xx g_xx) = 16 s - 4 a b / w
-# and, with l1 = 2 A / w (math.md), l1 = 2 s / w - a b / (2 w^2). So l1 = 0 on the
-# hyperbola a b = 4 s w: a curve through the (a, b) plane known in closed form.
+# docs/mathematics.md, gives 16 A = f_xxx + f_xyy + g_xxy + g_yyy + (1/w)(-f_xx g_xx)
+# = 16 s - 4 a b / w and, with l1 = 2 A / w (docs/mathematics.md),
+# l1 = 2 s / w - a b / (2 w^2). So l1 = 0 on the hyperbola a b = 4 s w: a curve through
+# the (a, b) plane known in closed form.
 TOML = """
 name = "tilted_normal_form"
 [states]

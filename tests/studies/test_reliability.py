@@ -1,7 +1,7 @@
 """FORM reliability index (lyacomp.studies.reliability) against exact answers and Monte Carlo.
 
 Planar normal form x' = mu x - y + b (x^2 + y^2) x, y' = x + mu y + b (x^2 + y^2) y has
-l1 = 2 b (math.md check value: l1 = 2 beta2 for w' = (beta1 + i) w + beta2 w |w|^2), so
+l1 = 2 b (docs/mathematics.md check value: l1 = 2 beta2 for w' = (beta1 + i) w + beta2 w |w|^2), so
 l1 is linear in the coefficients that make up b.
 """
 
@@ -136,7 +136,8 @@ def test_nonlinear_case_against_monte_carlo(examples_dir):
 
 
 def test_local_sensitivity_ranking(linear):
-    # Source: l1 = 2 (b1 - b2) (math.md check value): dl1/db1 = 2, dl1/db2 = -2, scaled by sd.
+    # Source: l1 = 2 (b1 - b2) (docs/mathematics.md check value): dl1/db1 = 2, dl1/db2 = -2,
+    # scaled by sd.
     table = {
         "b1": {"distribution": "normal", "sd": 0.2},
         "b2": {"distribution": "normal", "sd": 0.3},

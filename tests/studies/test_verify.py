@@ -64,7 +64,7 @@ def test_settles_on_exact_cycle_of_radial_normal_form():
 
 def test_critical_direction_normalization():
     # A rotation-dilation [[a, -w], [w, a]] has eigenvalue a + i w with eigenvector
-    # (1, -i)/sqrt(2) up to phase (common practice, no source); math.md fixes
+    # (1, -i)/sqrt(2) up to phase (common practice, no source); docs/mathematics.md fixes
     # <q, q> = 1 and <p, q> = 1.
     jac = np.array([[0.1, -2.0], [2.0, 0.1]])
     q, p = critical_direction(jac)
@@ -78,7 +78,7 @@ def tilted_normal_form(a: float, b: float, s: float, w: float, m: float) -> lyac
     """A Hopf normal form with frequency w, onset at mu = m and quadratic terms a x^2, b x^2.
 
     Guckenheimer & Holmes (1983) eq. 3.4.11 (equation number from memory), as written in
-    math.md: f = a x^2 + s x r^2, g = b x^2 + s y r^2 give 16 A = 16 s - 4 a b / w, and
+    docs/mathematics.md: f = a x^2 + s x r^2, g = b x^2 + s y r^2 give 16 A = 16 s - 4 a b / w, and
     l1 = 2 A / w = 2 s / w - a b / (2 w^2).
     """
     return lyacomp.Model(
