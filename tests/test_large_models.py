@@ -1,5 +1,5 @@
 """The large-model path (n >= 4: Hopf Newton by blocks, real double-shift QR spectrum check,
-eigenvectors and factors of A reused by l1) against outside references on 5- to 24-state
+eigenvectors and factors of A reused by l1) against outside references on 4- to 24-state
 models.
 
 References: the independent 40-digit mpmath implementation in tests/reference/mp_hopf.py
@@ -73,9 +73,11 @@ def _linear_cubic(n: int) -> lyacomp.Evaluator:
     return lyacomp.compile(model)
 
 
-@pytest.mark.parametrize("n", [5, 16, 24])
+@pytest.mark.parametrize("n", [4, 5, 16, 24])
 def test_unstable_counts_match_numpy_eigvals(n):
     # Counts compared with numpy.linalg.eigvals of the same matrix (reference library).
+    # Four states take the deflation of the Newton pair (the other two eigenvalues from a
+    # 2 x 2 block), more states the QR of the whole matrix.
     # Spectra: the pair +-2i, real eigenvalues on both sides of the axis (|Re| down to 1e-4),
     # stable complex pairs, in a random orthogonal basis, so the QR has no structure to use.
     rng = np.random.default_rng(100 + n)
