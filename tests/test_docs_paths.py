@@ -48,6 +48,17 @@ def test_no_user_facing_pointer_to_math_md():
     texts += [p.read_text() for p in (ROOT / "lyacomp").rglob("*.py")]
     for text in texts:
         assert "math.md" not in text.replace("mathematics.md", "")
+
+
+def test_sources_cite_the_projects_own_document():
+    # tests, benchmarks, templates and examples name conventions by docs/mathematics.md,
+    # never by a file outside the repository
+    files = [p for p in (ROOT / "tests").rglob("*.py") if p.name != Path(__file__).name]
+    files += [*(ROOT / "benchmarks").glob("*.py"), *(ROOT / "templates").glob("*.j2")]
+    files += [p for p in (ROOT / "examples").iterdir() if p.is_file()]
+    assert len(files) > 50
+    cited = [p.name for p in files if "math.md" in p.read_text().replace("mathematics.md", "")]
+    assert not cited, f"these files cite a conventions file users do not have: {cited}"
     assert (ROOT / "docs" / "mathematics.md").exists()
 
 

@@ -4,7 +4,7 @@ models.
 
 References: the independent 40-digit mpmath implementation in tests/reference/mp_hopf.py
 (projection formulas of Kuznetsov, Elements of Applied Bifurcation Theory, 3rd ed. 2004,
-Ch. 3, conventions of /work/shared/math.md), and numpy.linalg.eigvals for the count of
+Ch. 3, conventions of docs/mathematics.md), and numpy.linalg.eigvals for the count of
 unstable eigenvalues.
 """
 
