@@ -180,7 +180,8 @@ def markdown(results: dict, agree_tol: float) -> str:
         f"{pk['gflops_1t']:.1f} GFLOP/s on 1 thread, {pk[f'gflops_{cores}t']:.1f} on {cores}."
     )
     out.append(
-        f"- M1 kernel: {fl['flops_per_sample']:.0f} flops per sample "
+        f"- M1 batch (the lane path the rates above ran, counted one lane wide): "
+        f"{fl['flops_per_sample']:.0f} flops per sample "
         f"({fl['vector_flops_per_sample']:.0f} in SIMD instructions), "
         f"{fl['divisions_per_sample']:.1f} divisions, {fl['sqrt_per_sample']:.1f} square roots; "
         f"library calls per sample: {calls}."
