@@ -39,6 +39,12 @@ class LaneCode:
     functions: tuple[tuple[str, int], ...]
     critical_value: Block | None = None
     equilibrium: Block | None = None
+    b_form_real: tuple[str, ...] = ()
+    """``B(u, v)`` with a real ``v``."""
+    b_form_same: tuple[str, ...] = ()
+    """``B(u, u)``."""
+    b_form_conj_re: tuple[str, ...] = ()
+    """``Re B(u, conj u)``, into real outputs."""
 
 
 def _split_call(code: str, start: int) -> tuple[list[str], int]:
@@ -110,6 +116,53 @@ def _lane_form(accumulations: tuple[Accumulation, ...], prefix: str) -> tuple[st
     return tuple(lines)
 
 
+def _orders(term: str) -> tuple[str, str]:
+    """The two factors ``u[a]``, ``v[b]`` of a term of the bilinear form."""
+    first, second = (f.strip() for f in term.split(" * "))
+    return first, second
+
+
+def _lane_form_special(
+    accumulations: tuple[Accumulation, ...], prefix: str, kind: str
+) -> tuple[str, ...]:
+    """Cheaper versions of :func:`_lane_form` for the bilinear form ``B(u, v)`` with a
+    known second argument, each exactly equal to the general lines for finite values
+    (``kind``): ``real``: v real, so each complex product ``u[a] (v[b] + 0 i)`` is the
+    scaling ``v[b] u[a]`` (subtracting or adding the zero products changes nothing);
+    ``same``: v = u, where the two terms ``u[a] u[b] + u[b] u[a]`` of a mixed entry are
+    equal products (multiplication and addition commute exactly), so their sum is twice
+    one; ``conj_re``: the real part of B(u, conj u), the same pairing on the real parts
+    ``Re(u[a] conj u[b]) = u[a].re u[b].re + u[a].im u[b].im``."""
+    lines = []
+    for a in accumulations:
+        factor = a.factor if not _is_constant(a.factor) else f"{prefix}_splat({a.factor})"
+        pairs = [_orders(t) for t in a.terms]
+        if kind == "real":
+            total = ""
+            for u, v in pairs:
+                product = f"{prefix}_cscale({v}, {u})"
+                total = product if not total else f"{prefix}_cadd({total}, {product})"
+            lines.append(
+                f"{a.target} = {prefix}_cadd({a.target}, {prefix}_cscale({factor}, {total}));"
+            )
+            continue
+        u, v = pairs[0]
+        w = "u" + v[1:]
+        if kind == "same":
+            total = f"{prefix}_cmul({u}, {w})"
+            if len(pairs) == 2:
+                total = f"{prefix}_cscale({prefix}_splat(2.0), {total})"
+            lines.append(
+                f"{a.target} = {prefix}_cadd({a.target}, {prefix}_cscale({factor}, {total}));"
+            )
+        else:
+            total = f"({u}.re * {w}.re + {u}.im * {w}.im)"
+            if len(pairs) == 2:
+                total = f"2.0 * {total}"
+            lines.append(f"{a.target} += {factor} * {total};")
+    return tuple(lines)
+
+
 def lane_code(
     f_jac: Block,
     linear: Block | None,
@@ -138,6 +191,9 @@ def lane_code(
         tuple(sorted(used.items())),
         critical_lanes,
         equilibrium_lanes,
+        _lane_form_special(b_form, prefix, "real"),
+        _lane_form_special(b_form, prefix, "same"),
+        _lane_form_special(b_form, prefix, "conj_re"),
     )
 
 

@@ -177,6 +177,9 @@ def render(
         "lanes_equilibrium": lanes.equilibrium if lanes else None,
         "lanes_curvature": lanes.curvature if lanes else None,
         "lanes_b_form": lanes.b_form if lanes else (),
+        "lanes_b_form_real": lanes.b_form_real if lanes else (),
+        "lanes_b_form_same": lanes.b_form_same if lanes else (),
+        "lanes_b_form_conj_re": lanes.b_form_conj_re if lanes else (),
         "lanes_c_form": lanes.c_form if lanes else (),
         "lane_functions": lane_functions,
         # The derivative stage in lanes (templates/stage_lanes_sensitivity.c.j2), or None.
