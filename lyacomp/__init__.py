@@ -18,11 +18,12 @@ from .errors import (
 from .model import Model, delayed, load_model
 from .pipeline import compile_model as compile
 from .pipeline import generate
-from .runtime import CAUTION, BatchResult, Evaluator, HopfResult, Tolerances
+from .runtime import CAUTION, BatchBuffers, BatchResult, Evaluator, HopfResult, Tolerances
 from .status import Criticality, Status
 
 __all__ = [
     "CAUTION",
+    "BatchBuffers",
     "BatchResult",
     "BuildConfig",
     "BuildError",

@@ -31,19 +31,15 @@ def derivatives_of(der: Any, parameters: tuple[str, ...], ev: Any) -> dict[str, 
     return out
 
 
-def batch_derivative_buffers(ffi: Any, count: int, n_params: int, n: int):
-    """Output arrays (parameter-major, as the C driver fills them) and the struct on them."""
-    arrays = {
-        "status": np.empty(count, dtype=np.int32),
-        **{q: np.empty((n_params, count)) for q in SCALAR_QUANTITIES},
-        "equilibrium": np.empty((n_params, n, count)),
-    }
+def batch_derivative_struct(ffi: Any, arrays: dict[str, np.ndarray]) -> Any:
+    """The C struct on the derivative output arrays (parameter-major, as the driver fills
+    them: ``BatchBuffers.derivative_outputs``)."""
     c_der = ffi.new("lyc_batch_derivatives *")
-    if count:
+    if arrays["status"].size:
         c_der.status = ffi.cast("int *", ffi.from_buffer(arrays["status"]))
         for key in (*SCALAR_QUANTITIES, "equilibrium"):
             setattr(c_der, key, ffi.cast("double *", ffi.from_buffer(arrays[key])))
-    return c_der, arrays
+    return c_der
 
 
 def _kept_rows(buffer: np.ndarray, keep: list[int]) -> np.ndarray:
@@ -62,7 +58,7 @@ def batch_derivatives(
     missing = arrays["status"] != 0
     out = {}
     for q in SCALAR_QUANTITIES:
-        a = _kept_rows(arrays[q], keep).T  # the buffers are this call's own
+        a = _kept_rows(arrays[q], keep).T  # the buffers of this call (fresh or out=)
         a[missing] = math.nan
         out[q] = a.reshape(shape + (len(keep),))
     eq = np.moveaxis(_kept_rows(arrays["equilibrium"], keep), -1, 0)

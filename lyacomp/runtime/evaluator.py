@@ -17,8 +17,9 @@ from ..errors import EvaluationError, InternalError
 from ..model import Model
 from ..status import Criticality
 from . import operating as op
+from .batch_buffers import BatchBuffers
 from .degenerate import DegeneratePoint, locate_degenerate
-from .derivatives import batch_derivative_buffers, batch_derivatives, derivatives_of
+from .derivatives import batch_derivative_struct, batch_derivatives, derivatives_of
 from .results import BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
@@ -626,6 +627,16 @@ class Evaluator:
         in the order of :attr:`derivative_parameters` (NaN where a sample is not ok). In a
         model with a parameter named ``derivatives`` that keyword is the parameter; use
         :meth:`batch_derivatives` then.
+
+        ``out=`` takes buffers from :meth:`batch_buffers` (room for at least this batch's
+        samples, and for the derivatives when they are asked for) and writes every output
+        into them instead of fresh arrays: the same numbers, bit for bit, without the page
+        faults of new memory, for loops that evaluate chunk after chunk. The arrays of the
+        result are then views on the buffers, overwritten by the next call that uses them
+        (the derivative arrays too, unless the bifurcation parameter sits between other
+        parameters: they are copies then). Inputs must not share memory with the buffers
+        (copy a previous result's arrays first). A model parameter named ``out`` takes a
+        keyword value that is not a :class:`BatchBuffers`.
         """
         derivatives = False
         if "derivatives" in values and "derivatives" not in self._index:
@@ -634,13 +645,52 @@ class Evaluator:
                 raise EvaluationError(
                     f"derivatives must be True or False, got {_describe(derivatives)}"
                 )
-        return self._batch(params, threads, bool(derivatives), values, guess, operating, search)
+        buffers = self._out_option(values)
+        return self._batch(
+            params, threads, bool(derivatives), values, guess, operating, search, buffers
+        )
 
     def batch_derivatives(
         self, params: Mapping[str, Any] | None = None, /, *, threads: int | None = None, **values
     ) -> BatchResult:
-        """``ev.batch(..., derivatives=True)``, also for models with a parameter of that name."""
-        return self._batch(params, threads, True, values, None, None, None)
+        """``ev.batch(..., derivatives=True)``, also for models with a parameter of that name
+        (``out=`` as in :meth:`batch`)."""
+        buffers = self._out_option(values)
+        return self._batch(params, threads, True, values, None, None, None, buffers)
+
+    def batch_buffers(self, capacity: int, *, derivatives: bool = False) -> BatchBuffers:
+        """Output arrays for ``batch(..., out=buffers)`` calls of up to ``capacity`` samples
+        each (a smaller batch uses the first places): allocated once, mapped by the first
+        call, reused by every later one. ``derivatives=True`` adds room for the derivative
+        outputs (``parameters * (3 + states)`` more doubles per sample). The buffers fit
+        every evaluator of the same model (other tolerances or guesses, the extended twin).
+        """
+        if isinstance(capacity, bool | np.bool_) or not isinstance(capacity, numbers.Integral):
+            raise EvaluationError(
+                f"capacity must be a positive integer (samples), got {_describe(capacity)}"
+            )
+        if int(capacity) < 1:
+            raise EvaluationError(f"capacity must be at least 1 sample, got {int(capacity)}")
+        if not isinstance(derivatives, bool | np.bool_):
+            raise EvaluationError(
+                f"derivatives must be True or False, got {_describe(derivatives)}"
+            )
+        return BatchBuffers(
+            int(capacity), self.states, self.parameters, derivatives=bool(derivatives)
+        )
+
+    def _out_option(self, values: dict[str, Any]) -> BatchBuffers | None:
+        """The ``out=`` buffers taken out of the keywords (None without them)."""
+        if "out" not in values:
+            return None
+        if "out" in self._index and not isinstance(values["out"], BatchBuffers):
+            return None  # the value of a parameter named `out`
+        buffers = values.pop("out")
+        if buffers is not None and not isinstance(buffers, BatchBuffers):
+            raise EvaluationError(
+                f"out= takes the buffers of ev.batch_buffers(capacity), got {_describe(buffers)}"
+            )
+        return buffers
 
     def _batch(
         self,
@@ -651,13 +701,14 @@ class Evaluator:
         guess: Mapping[str, Any] | None,
         operating: Any,
         search: str | None,
+        buffers: BatchBuffers | None = None,
     ) -> BatchResult:
         method = op.chosen_search(self, search, operating)
         if derivatives:
             _derivatives_need_guess_search(method, guess)
             twin = self._with_derivatives()
             if twin is not self:
-                return twin._batch(params, threads, True, values, guess, operating, search)
+                return twin._batch(params, threads, True, values, guess, operating, search, buffers)
         values = _names(params, values, "parameters")
         if guess is not None and not isinstance(guess, Mapping) and "guess" in self._index:
             # a parameter named `guess` given as a keyword (a mapping is never its value)
@@ -703,23 +754,46 @@ class Evaluator:
             else:
                 columns.append(np.ascontiguousarray(np.broadcast_to(a, shape)).reshape(-1))
                 strides.append(1)
+        run = (count, shape, columns, strides, arrays, guesses, op_array, values, method, threads)
+        if buffers is None:
+            fresh = BatchBuffers(
+                count,
+                self.states,
+                self.parameters,
+                derivatives=derivatives,
+                operating=method == "operating",
+            )
+            return self._run_batch(fresh, derivatives, *run)
+        buffers.check(self, count, derivatives)
+        inputs = [*columns, *guesses.values(), op_array]
+        if any(np.may_share_memory(a, b) for a in inputs for b in buffers.arrays()):
+            raise EvaluationError(
+                "an input of this batch shares memory with the out= buffers (a view on a result"
+                " of an earlier call with them?): pass a copy (np.array(...))"
+            )
+        with buffers.claimed():
+            return self._run_batch(buffers, derivatives, *run)
+
+    def _run_batch(
+        self,
+        buffers: BatchBuffers,
+        derivatives: bool,
+        count: int,
+        shape: tuple[int, ...],
+        columns: list[np.ndarray],
+        strides: list[int],
+        arrays: list[np.ndarray],
+        guesses: dict[str, np.ndarray],
+        op_array: np.ndarray,
+        values: dict[str, Any],
+        method: str,
+        threads: int,
+    ) -> BatchResult:
+        """The C call of a checked batch, writing into ``buffers``; the result on them."""
         n = len(self.states)
-        out = {
-            "status": np.empty(count, dtype=np.int32),
-            "criticality": np.empty(count, dtype=np.int8),
-            "cycle_side": np.empty(count, dtype=np.int8),
-            "unstable_count": np.empty(count, dtype=np.int32),
-            "stable_side": np.empty(count, dtype=np.int8),
-            **{
-                k: np.empty(count)
-                for k in ("l1", "omega", "period", "critical_value", "transversality")
-            },
-            "equilibrium": np.empty((n, count)),
-            "amplitude": np.empty((n, count)),
-        }
+        out = buffers.outputs(count)
         extra: dict[str, np.ndarray] = {}
-        if method == "operating":
-            extra = {"loss_value": np.empty(shape), "search_steps": np.empty(shape, np.int32)}
+        der_out = buffers.derivative_outputs(count) if derivatives else {}
         if count:
             ffi = self.ffi
             c_out = ffi.new(f"{PREFIX}_batch_out *")
@@ -746,7 +820,7 @@ class Evaluator:
             if method == "operating":
                 bif_guess = arrays[self._index[self.bifurcation]]
                 extra = self._batch_operating(
-                    count, shape, c_params, c_strides, bif_guess, op_array, threads, c_out
+                    count, shape, c_params, c_strides, bif_guess, op_array, threads, c_out, buffers
                 )
             elif guesses:
                 state_columns, state_strides = self._guess_columns(guesses, shape)
@@ -768,12 +842,13 @@ class Evaluator:
                 start = ffi.NULL if self.bifurcation in values else self._start
                 args = (count, c_params, c_strides, self._guess, start, self._options, threads)
                 if derivatives:
-                    c_der, der_out = batch_derivative_buffers(ffi, count, len(self.parameters), n)
+                    c_der = batch_derivative_struct(ffi, der_out)
                     self.lib.lyc_evaluate_batch_derivatives(*args, c_out, c_der)
                 else:
                     self._evaluate_batch(*args, c_out)
-        elif derivatives:
-            der_out = batch_derivative_buffers(self.ffi, 0, len(self.parameters), n)[1]
+        elif method == "operating":
+            loss, steps = buffers.operating(0)
+            extra = {"loss_value": loss.reshape(shape), "search_steps": steps.reshape(shape)}
         vector = {k: v.reshape(shape) for k, v in out.items() if v.ndim == 1}
         matrix = {k: out[k].T.reshape(shape + (n,)) for k in ("equilibrium", "amplitude")}
         result = BatchResult(states=self.states, **vector, **matrix, search=method, **extra)
@@ -796,16 +871,17 @@ class Evaluator:
         operating: np.ndarray,
         threads: int,
         c_out: Any,
+        buffers: BatchBuffers,
     ) -> dict[str, np.ndarray]:
         """The operating-point search over a batch: one operating value and direction per
-        sample (broadcast); returns the per-sample loss values and step counts."""
+        sample (broadcast); returns the per-sample loss values and step counts (views on
+        ``buffers``)."""
         ffi = self.ffi
         op_column = np.ascontiguousarray(np.broadcast_to(operating, shape), dtype=np.float64)
         dirs = op.directions(self, np.broadcast_to(guess, shape), op_column)
         dirs = np.ascontiguousarray(dirs, dtype=np.int8).reshape(-1)
         op_column = op_column.reshape(-1)
-        loss = np.empty(count)
-        steps = np.empty(count, dtype=np.int32)
+        loss, steps = buffers.operating(count)
         getattr(self.lib, f"{PREFIX}_evaluate_operating_batch")(
             count,
             c_params,
