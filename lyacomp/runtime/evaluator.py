@@ -5,6 +5,7 @@ from __future__ import annotations
 import decimal
 import math
 import numbers
+import operator
 import threading
 from collections.abc import Callable, Mapping
 from dataclasses import asdict, dataclass, replace
@@ -20,7 +21,7 @@ from . import operating as op
 from .batch_buffers import BatchBuffers
 from .degenerate import DegeneratePoint, locate_degenerate
 from .derivatives import batch_derivative_struct, batch_derivatives, derivatives_of
-from .results import BatchResult, HopfResult, SearchInfo
+from .results import NO_EXTRAS, BatchResult, HopfResult, SearchInfo
 
 PREFIX = "lyc"
 
@@ -40,6 +41,11 @@ MAX_ITER = 100_000
 _DEGENERATE = int(Criticality.DEGENERATE)  # compared with the C struct's int per call
 
 _FLOAT64 = np.float64  # a float subclass: cffi reads its double as it reads a float's
+
+_FAST_TYPES = frozenset((float, _FLOAT64))
+"""The value types the keyword fast path of the scalar call passes to C unchecked."""
+
+_NEW = object.__new__
 
 _REAL_KINDS = "biuf"  # numpy dtype kinds of real numbers: bool, signed, unsigned, float
 
@@ -122,6 +128,14 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
             f"{what} are given as a mapping of name -> value, got {_describe(mapping)}"
         )
     return {**mapping, **keywords}
+
+
+def _in_order(names: tuple[str, ...]) -> Callable[[Mapping[str, Any]], tuple]:
+    """A function of a mapping: its values of ``names``, as a tuple in that order (one
+    C call for two names or more; itemgetter of one name gives the value, not a tuple)."""
+    if len(names) >= 2:
+        return operator.itemgetter(*names)
+    return lambda mapping: tuple(mapping[name] for name in names)
 
 
 #: What delay kernels do not compute yet (the refusals of ``delay_refusal``).
@@ -257,21 +271,43 @@ class Evaluator:
         getattr(self.lib, f"{PREFIX}_prepare_start")(
             self._nominal, self._guess, self._options, self._start
         )
-        # What the fast path of __call__ reads, in one attribute (one load instead of ten).
-        self._scalar = (
-            self._evaluate,
-            self.ffi.new,
-            self._result_type,
-            self._guess,
-            self._start,
-            self._options,
+        self._scalar = self._scalar_plan()
+
+    def _scalar_plan(self) -> tuple:
+        """What the keyword fast path of __call__ reads, in one attribute (one load instead
+        of ten): the C entry, the warm and the cold call context, the nominal values by name,
+        their count and their row, the getter that puts a mapping in the model's order, the
+        results' shared context, the search of a call at the nominal guess, the bifurcation
+        parameter."""
+        ffi = self.ffi
+        entry = getattr(self.lib, f"{PREFIX}_evaluate_values", None)
+        if entry is None:  # no parameters, or too many for an argument list (api.h.j2)
+            entry = self._evaluate_array
+            warm, cold = (self._guess, self._start), (self._guess, self._null)
+        else:
+            warm, cold = ffi.new(f"{PREFIX}_call *"), ffi.new(f"{PREFIX}_call *")
+            for call, start in ((warm, self._start), (cold, self._null)):
+                call.state_guess, call.start, call.opt = self._guess, start, self._options
+        names = self.parameters
+        return (
+            entry,
+            warm,
+            cold,
+            dict(zip(names, self._nominal)),
+            len(names),
+            tuple(self._nominal),
+            _in_order(names),
             self._context,
-            self._c_nominal,
-            self._nominal,
-            self._index,
+            ("guess", self._nominal_start),
             self.bifurcation,
-            self._nominal_start,
         )
+
+    def _evaluate_array(self, call: tuple, *row: float) -> Any:
+        """What ``<prefix>_evaluate_values`` does, for models without it: the parameters as
+        an array, a fresh result struct."""
+        res = self.ffi.new(self._result_type)
+        self._evaluate(list(row) or self._c_nominal, *call, self._options, res)
+        return res
 
     # -- introspection ----------------------------------------------------------------
     @property
@@ -348,44 +384,29 @@ class Evaluator:
         # declared names cost every parameter keyword a string comparison per name.
         if params is None and self._fast:
             # The common call (parameter keywords, Python or numpy float64 values) skips the
-            # general checks; anything else leaves p None, to take them.
-            (
-                evaluate,
-                new,
-                result_type,
-                state_guess,
-                start,
-                options,
-                context,
-                p,
-                nominal,
-                index,
-                bifurcation,
-                guess,
-            ) = self._scalar
+            # general checks; anything else leaves row None, to take them.
+            (entry, call, cold, nominal, count, row, ordered, context, search, bif) = self._scalar
             if values:
-                # The row goes to C as a list: cffi converts it into a temporary array, which
-                # costs less than filling a buffer kept for the purpose (measured on M1: 0.17
-                # against 0.30 us for nine values) and shares nothing between threads. A merged
-                # dict {**nominal, **values} with the types checked by map() took 0.3 us more.
-                p = nominal.copy()
-                try:
-                    for name, value in values.items():
-                        kind = type(value)
-                        if kind is not float and kind is not _FLOAT64:  # l2=, derivatives=, ...
-                            p = None
-                            break
-                        p[index[name]] = value
-                except KeyError:  # an unknown name (or operating=, search=)
-                    p = None
-                if p is not None and bifurcation in values:
-                    start, guess = self._null, float(values[bifurcation])
-            if p is not None:
-                res = new(result_type)
-                evaluate(p, state_guess, start, options, res)
-                result = HopfResult._fresh(res, context, guess)
+                # One merge gives every parameter a value; a name that is no parameter (or
+                # operating=, search=, l2=, ...) makes the mapping longer.
+                merged = {**nominal, **values}
+                if len(merged) == count and _FAST_TYPES.issuperset(map(type, values.values())):
+                    row = ordered(merged)
+                else:
+                    row = None
+                if row is not None and bif in values:  # bif None: no keyword is None
+                    call, search = cold, ("guess", float(values[bif]))
+            if row is not None:
+                # The values go to C as arguments and the struct comes back by value: nothing
+                # is shared between calls or threads, and the result owns its copy.
+                res = entry(call, *row)
+                result = _NEW(HopfResult)  # four stores instead of a call of __init__
+                result._raw = res
+                result._context = context
+                result._search = search
+                result._extras = NO_EXTRAS
                 if res.criticality == _DEGENERATE and self._has_l2:
-                    self._second_coefficient(p, res, result)
+                    self._second_coefficient(row, res, result)
                 return result
         operating = values.pop("operating", None)
         search = values.pop("search", None)
@@ -480,6 +501,8 @@ class Evaluator:
             raise delay_refusal(DELAY_L2)
         twin = self._twin(EXTENDED)
         ffi = twin.ffi
+        if self.ffi.typeof(res).kind == "struct":  # returned by value (the scalar call)
+            res = self.ffi.addressof(res)
         if twin is not self:
             # The struct types belong to each library's ffi: copy the bytes across (the
             # layout is the same, both come from the same model and api.h.j2).
