@@ -130,12 +130,17 @@ def _names(mapping: Any, keywords: dict[str, Any], what: str) -> dict[str, Any]:
     return {**mapping, **keywords}
 
 
-def _in_order(names: tuple[str, ...]) -> Callable[[Mapping[str, Any]], tuple]:
-    """A function of a mapping: its values of ``names``, as a tuple in that order (one
-    C call for two names or more; itemgetter of one name gives the value, not a tuple)."""
-    if len(names) >= 2:
-        return operator.itemgetter(*names)
-    return lambda mapping: tuple(mapping[name] for name in names)
+_CALL = 0
+"""The key of the call context among the parameter names of the fast path's mapping (a
+keyword is always a string)."""
+
+
+def _in_order(keys: tuple[Any, ...]) -> Callable[[Mapping[Any, Any]], tuple]:
+    """A function of a mapping: its values of ``keys``, as a tuple in that order (one C call
+    for two keys or more; itemgetter of one key gives the value, not a tuple)."""
+    if len(keys) >= 2:
+        return operator.itemgetter(*keys)
+    return lambda mapping: tuple(mapping[key] for key in keys)
 
 
 #: What delay kernels do not compute yet (the refusals of ``delay_refusal``).
@@ -275,9 +280,10 @@ class Evaluator:
 
     def _scalar_plan(self) -> tuple:
         """What the keyword fast path of __call__ reads, in one attribute (one load instead
-        of ten): the C entry, the warm and the cold call context, the nominal values by name,
-        their count and their row, the getter that puts a mapping in the model's order, the
-        results' shared context, the search of a call at the nominal guess, the bifurcation
+        of ten): the C entry; its arguments at nominal values; the same by name (the call
+        context under the key ``_CALL``), their count and the getter that puts such a
+        mapping in argument order; the context of a call from the guesses; the results'
+        shared context; the search of a call at the nominal guess; the bifurcation
         parameter."""
         ffi = self.ffi
         entry = getattr(self.lib, f"{PREFIX}_evaluate_values", None)
@@ -288,15 +294,14 @@ class Evaluator:
             warm, cold = ffi.new(f"{PREFIX}_call *"), ffi.new(f"{PREFIX}_call *")
             for call, start in ((warm, self._start), (cold, self._null)):
                 call.state_guess, call.start, call.opt = self._guess, start, self._options
-        names = self.parameters
+        defaults = {_CALL: warm, **dict(zip(self.parameters, self._nominal))}
         return (
             entry,
-            warm,
+            (warm, *self._nominal),
+            defaults,
+            len(defaults),
+            _in_order(tuple(defaults)),
             cold,
-            dict(zip(names, self._nominal)),
-            len(names),
-            tuple(self._nominal),
-            _in_order(names),
             self._context,
             ("guess", self._nominal_start),
             self.bifurcation,
@@ -385,28 +390,29 @@ class Evaluator:
         if params is None and self._fast:
             # The common call (parameter keywords, Python or numpy float64 values) skips the
             # general checks; anything else leaves row None, to take them.
-            (entry, call, cold, nominal, count, row, ordered, context, search, bif) = self._scalar
+            (entry, args, defaults, count, in_order, cold, context, search, bif) = self._scalar
             if values:
-                # One merge gives every parameter a value; a name that is no parameter (or
-                # operating=, search=, l2=, ...) makes the mapping longer.
-                merged = {**nominal, **values}
+                # One merge gives every parameter a value (and the call context its place
+                # before them); a name that is no parameter (or operating=, search=, l2=, ...)
+                # makes the mapping longer.
+                merged = {**defaults, **values}
                 if len(merged) == count and _FAST_TYPES.issuperset(map(type, values.values())):
-                    row = ordered(merged)
+                    if bif in values:  # bif None: no keyword is None
+                        merged[_CALL], search = cold, ("guess", float(values[bif]))
+                    args = in_order(merged)
                 else:
-                    row = None
-                if row is not None and bif in values:  # bif None: no keyword is None
-                    call, search = cold, ("guess", float(values[bif]))
-            if row is not None:
+                    args = None
+            if args is not None:
                 # The values go to C as arguments and the struct comes back by value: nothing
                 # is shared between calls or threads, and the result owns its copy.
-                res = entry(call, *row)
+                res = entry(*args)
                 result = _NEW(HopfResult)  # four stores instead of a call of __init__
                 result._raw = res
                 result._context = context
                 result._search = search
                 result._extras = NO_EXTRAS
                 if res.criticality == _DEGENERATE and self._has_l2:
-                    self._second_coefficient(row, res, result)
+                    self._second_coefficient(args[1:] or self._c_nominal, res, result)
                 return result
         operating = values.pop("operating", None)
         search = values.pop("search", None)
