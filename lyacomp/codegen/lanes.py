@@ -28,12 +28,13 @@ VECTOR_MATH = {"exp": 1, "log": 1, "sin": 1, "cos": 1, "tanh": 1, "pow": 2}
 class LaneCode:
     """Lane blocks of one model and the libm functions (name, arity) they call.
 
-    ``linear`` (the reduced Hopf Newton's) is None for a model with a closed-form critical
-    value, which has ``critical_value`` and ``equilibrium`` instead."""
+    ``f_jac`` and ``linear`` (the reduced Hopf Newton's) are None for a model with a
+    closed-form critical value, which has ``critical_value`` and ``equilibrium`` instead;
+    ``hopf_point`` is the evaluation at the Hopf point (Jacobian and derivatives)."""
 
-    f_jac: Block
+    f_jac: Block | None
     linear: Block | None
-    curvature: Block
+    hopf_point: Block
     b_form: tuple[str, ...]
     c_form: tuple[str, ...]
     functions: tuple[tuple[str, int], ...]
@@ -166,7 +167,7 @@ def _lane_form_special(
 def lane_code(
     f_jac: Block,
     linear: Block | None,
-    curvature: Block,
+    hopf_point: Block,
     b_form: tuple[Accumulation, ...],
     c_form: tuple[Accumulation, ...],
     prefix: str,
@@ -180,12 +181,14 @@ def lane_code(
     def lanes_of(block: Block | None) -> Block | None:
         return _lane_block(block, prefix, used) if block is not None else None
 
-    f_jac_lanes, linear_lanes, curvature_lanes = map(lanes_of, (f_jac, linear, curvature))
+    # The lane Newton's residual (a closed-form model has no Newton in lanes).
+    f_jac_lanes = lanes_of(f_jac if linear is not None else None)
+    linear_lanes, point_lanes = map(lanes_of, (linear, hopf_point))
     critical_lanes, equilibrium_lanes = map(lanes_of, (critical_value, equilibrium))
     return LaneCode(
         f_jac_lanes,
         linear_lanes,
-        curvature_lanes,
+        point_lanes,
         _lane_form(b_form, prefix),
         _lane_form(c_form, prefix),
         tuple(sorted(used.items())),

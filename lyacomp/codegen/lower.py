@@ -67,6 +67,10 @@ class Lowered:
     chain: tuple[Accumulation, ...]
     critical_value: Block | None
     equilibrium: Block | None
+    hopf_point: Block | None = None
+    """The Jacobian, second and third derivatives and the mu derivatives in one block, for
+    the lane stage's evaluation at a Hopf point (two and three states with a bifurcation
+    parameter, no delays; else None)."""
     n_delays: int = 0
     """Number of distinct delays; the stacked variables number ``n * (n_delays + 1)``."""
     delays: Block | None = None
@@ -139,6 +143,10 @@ def lower(der: Derivatives) -> Lowered:
     )
     third_assign = [(f"d3[{k}]", der.third[key]) for k, key in enumerate(third_keys)]
     curvature = lower_block(second_assign + third_assign + mu_assign, subs, "t", chain)
+    hopf_point = None
+    if n <= 3 and model.bifurcation is not None and not model.delays:
+        point_assign = jac_assign + second_assign + third_assign + mu_assign
+        hopf_point = lower_block(point_assign, subs, "t", chain)
 
     b_form = []
     hess_dir = []
@@ -187,6 +195,7 @@ def lower(der: Derivatives) -> Lowered:
         chain=tuple(chain),
         critical_value=crit,
         equilibrium=equilibrium,
+        hopf_point=hopf_point,
         n_delays=len(model.delays),
         delays=_lower_delays(der, subs),
     )

@@ -119,11 +119,11 @@ def render(
         and lowered.equilibrium is not None
     )
     lanes = None
-    if ((reduced and lowered.linear) or closed_form) and not lowered.n_delays:
+    if ((reduced and lowered.linear) or closed_form) and lowered.hopf_point is not None:
         lanes = lane_code(
             lowered.f_jac,
             lowered.linear if reduced else None,
-            lowered.curvature,
+            lowered.hopf_point,
             lowered.b_form,
             lowered.c_form,
             prefix,
@@ -175,7 +175,7 @@ def render(
         "lanes_linear": lanes.linear if lanes else None,
         "lanes_critical_value": lanes.critical_value if lanes else None,
         "lanes_equilibrium": lanes.equilibrium if lanes else None,
-        "lanes_curvature": lanes.curvature if lanes else None,
+        "lanes_hopf_point": lanes.hopf_point if lanes else None,
         "lanes_b_form": lanes.b_form if lanes else (),
         "lanes_b_form_real": lanes.b_form_real if lanes else (),
         "lanes_b_form_same": lanes.b_form_same if lanes else (),
