@@ -165,6 +165,9 @@ def test_bad_out_is_refused(normal_form):
         normal_form.batch(s=result.l1, out=buffers)
     with pytest.raises(EvaluationError, match="shares memory with the out= buffers"):
         normal_form.batch(values, guess={"x": result.equilibrium[:, 0]}, out=buffers)
+    foreign = np.asarray(memoryview(result.l1))  # the memory reached through another object
+    with pytest.raises(EvaluationError, match="shares memory with the out= buffers"):
+        normal_form.batch(s=foreign, out=buffers)
     normal_form.batch(s=np.array(result.l1), out=buffers)  # a copy is fine
     with buffers.claimed(), pytest.raises(EvaluationError, match="in use by another batch call"):
         normal_form.batch(values, out=buffers)

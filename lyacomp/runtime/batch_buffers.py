@@ -45,7 +45,16 @@ class BatchBuffers:
     may use a set of buffers (a second, concurrent one is refused): give each thread its own.
     """
 
-    __slots__ = ("capacity", "states", "parameters", "derivatives", "_flat", "_der", "_busy")
+    __slots__ = (
+        "capacity",
+        "states",
+        "parameters",
+        "derivatives",
+        "_flat",
+        "_der",
+        "_owners",
+        "_busy",
+    )
 
     def __init__(
         self,
@@ -78,6 +87,7 @@ class BatchBuffers:
             ) from None
         self._flat: dict[str, np.ndarray] = flat
         self._der: dict[str, np.ndarray] | None = der
+        self._owners = {id(a) for a in self.arrays()}
         self._busy = threading.Lock()
 
     def __repr__(self) -> str:
@@ -85,10 +95,22 @@ class BatchBuffers:
         return f"<lyacomp.BatchBuffers: {self.capacity} samples, {len(self.states)} states{extra}>"
 
     def arrays(self) -> Iterator[np.ndarray]:
-        """Every array of the buffers (to test inputs for overlap with them)."""
+        """Every array of the buffers."""
         yield from self._flat.values()
         if self._der is not None:
             yield from self._der.values()
+
+    def overlaps(self, array: np.ndarray) -> bool:
+        """Whether ``array`` may share memory with the buffers (for an input of a call)."""
+        root = array
+        while isinstance(root.base, np.ndarray):
+            root = root.base
+        if root.base is None:
+            # memory numpy allocated: the array owning it tells (a view on a result of an
+            # earlier call leads to one of these arrays), in a set lookup
+            return id(root) in self._owners
+        # memory of another object (a memory map, a memoryview): compare the address ranges
+        return any(np.may_share_memory(array, b) for b in self.arrays())
 
     def check(self, evaluator: Any, count: int, derivatives: bool) -> None:
         """EvaluationError unless a batch of ``count`` samples of ``evaluator`` fits."""

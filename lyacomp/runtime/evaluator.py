@@ -795,7 +795,7 @@ class Evaluator:
             return self._run_batch(fresh, derivatives, *run)
         buffers.check(self, count, derivatives)
         inputs = [*columns, *guesses.values(), op_array]
-        if any(np.may_share_memory(a, b) for a in inputs for b in buffers.arrays()):
+        if any(buffers.overlaps(a) for a in inputs):
             raise EvaluationError(
                 "an input of this batch shares memory with the out= buffers (a view on a result"
                 " of an earlier call with them?): pass a copy (np.array(...))"
