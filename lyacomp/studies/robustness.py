@@ -506,9 +506,10 @@ def evaluate_chunk(
     method: str,
     threads: int | None,
     branch_steps: int = BRANCH_STEPS,
+    buffers: ChunkBuffers | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, dict[str, int]]:
     """Draw and evaluate the ``m`` samples of chunk ``chunk``: keys, block, status, the
-    mask of hard onsets, tallies.
+    mask of hard onsets, tallies (arrays of their own, also with ``buffers``).
 
     The tallies count the samples whose Hopf point is a first loss of stability
     (``first_loss``) and, among them, the hard and degenerate onsets, and the ok samples
@@ -517,15 +518,18 @@ def evaluate_chunk(
     the hard ones (first loss of stability, subcritical).
 
     A pure function of its arguments (the stream is keyed by ``(seed, chunk)``), so the
-    local loop and a cluster worker compute the same bits.
+    local loop and a cluster worker compute the same bits. ``buffers`` (made for at least
+    ``m`` samples) only change where the batch outputs are written.
     """
     rng = chunk_rng(seed, chunk)
     values = spec.values(draw_scores(rng, m, spec.dimension, method))
     keys = rng.random(m)
     inputs = {**base, **{n: values[:, j] for j, n in enumerate(spec.names)}}
-    batch = ev.batch(inputs, threads=threads)
+    batch = ev.batch(
+        inputs, threads=threads, **({} if buffers is None else {"out": buffers.samples})
+    )
     block = np.column_stack([values, _output_block(batch)])
-    status = np.asarray(batch.status)
+    status = np.array(batch.status)
     crit = np.asarray(batch.criticality)
     first = (status == 0) & first_loss_of(batch)
     hard = first & (crit == Criticality.SUBCRITICAL)
@@ -535,11 +539,36 @@ def evaluate_chunk(
         "degenerate": int(np.count_nonzero(first & (crit == Criticality.DEGENERATE))),
         "off_branch": int(
             np.count_nonzero(
-                off_nominal_branch(ev, spec, base, values, batch, branch_steps, threads)
+                off_nominal_branch(
+                    ev,
+                    spec,
+                    base,
+                    values,
+                    batch,
+                    branch_steps,
+                    threads,
+                    None if buffers is None else buffers.steps,
+                )
             )
         ),
     }
     return keys, block, status, hard, tallies
+
+
+@dataclass(frozen=True)
+class ChunkBuffers:
+    """Batch outputs kept from chunk to chunk (``Evaluator.batch_buffers``): the samples'
+    own solves and the branch check's steps (which read the samples' results while they
+    run, so they need buffers of their own). Kept memory is mapped once, fresh arrays on
+    every call (a page fault per 4 KiB)."""
+
+    samples: Any
+    steps: Any
+
+    @classmethod
+    def make(cls, ev: Any, capacity: int) -> ChunkBuffers:
+        """Buffers for chunks of up to ``capacity`` samples of ``ev``."""
+        return cls(ev.batch_buffers(capacity), ev.batch_buffers(capacity))
 
 
 def off_nominal_branch(
@@ -550,6 +579,7 @@ def off_nominal_branch(
     batch: Any,
     steps: int = BRANCH_STEPS,
     threads: int | None = None,
+    buffers: Any = None,
 ) -> np.ndarray:
     """Which ok samples have a Hopf point that is not on the nominal Hopf branch.
 
@@ -561,6 +591,7 @@ def off_nominal_branch(
     Hopf point, or a branch that ends or turns back between nominal and sample). Nominal
     values are ``base`` where given, else the model's. Without a bifurcation parameter,
     with ``steps`` 0, or when the nominal point has no Hopf point, nothing is marked.
+    ``buffers`` (``Evaluator.batch_buffers``, not those of ``batch``) take the steps' outputs.
     """
     ok = np.asarray(batch.status) == Status.OK
     marked = np.zeros(ok.shape, bool)
@@ -571,24 +602,29 @@ def off_nominal_branch(
     if not nominal.ok[0]:
         return marked
     rows = np.flatnonzero(ok)
-    eq = np.repeat(np.asarray(nominal.equilibrium, float).reshape(1, -1), rows.size, axis=0)
+    # State-major and parameter-major rows: every input column of the steps is contiguous,
+    # so batch copies none of them (the same numbers as sample-major arrays).
+    eq = np.repeat(np.asarray(nominal.equilibrium, float).reshape(-1, 1), rows.size, axis=1)
     mu0 = np.full(rows.size, float(nominal.critical_value[0]))
     omega = np.full(rows.size, float(nominal.omega[0]))
     arrived = np.ones(rows.size, bool)
+    offset = np.ascontiguousarray((values[rows] - centre).T)
+    point = np.empty_like(offset)  # written in place by every step: its pages mapped once
     for k in range(1, steps + 1):
-        point = centre + (k / steps) * (values[rows] - centre)
-        guess: dict[str, Any] = {s: eq[:, i] for i, s in enumerate(ev.states)}
+        np.add(centre[:, None], np.multiply(offset, k / steps, out=point), out=point)
+        guess: dict[str, Any] = {s: eq[i] for i, s in enumerate(ev.states)}
         guess[ev.bifurcation] = mu0
         step = ev.batch(
-            {**base, **{n: point[:, j] for j, n in enumerate(spec.names)}},
+            {**base, **{n: point[j] for j, n in enumerate(spec.names)}},
             guess=guess,
             threads=threads,
+            **({} if buffers is None else {"out": buffers}),
         )
         good = np.asarray(step.ok, bool)
         arrived &= good
-        eq[good] = np.asarray(step.equilibrium, float)[good]
-        mu0[good] = np.asarray(step.critical_value)[good]
-        omega[good] = np.asarray(step.omega)[good]
+        np.copyto(eq, np.asarray(step.equilibrium, float).T, where=good)
+        np.copyto(mu0, step.critical_value, where=good)
+        np.copyto(omega, step.omega, where=good)
     direct_mu = np.asarray(batch.critical_value)[rows]
     direct_omega = np.asarray(batch.omega)[rows]
     mu_size = np.maximum(np.abs(mu0), np.abs(direct_mu))
@@ -670,6 +706,7 @@ def run_robustness(
     store = open_store(save, columns, spec.dimension, labels) if save is not None else None
     bar = _progress(samples, progress)
     stopped = False
+    buffers = ChunkBuffers.make(ev, min(chunk_size, samples)) if client is None else None
     try:
         with _stop_on_interrupt() as flag:
             if client is not None:
@@ -700,7 +737,7 @@ def run_robustness(
                     break
                 m = min(chunk_size, samples - start)
                 keys, block, status, hard, tallies = evaluate_chunk(
-                    ev, spec, base, seed, chunk, m, method, threads, branch_steps
+                    ev, spec, base, seed, chunk, m, method, threads, branch_steps, buffers
                 )
                 ok = status == 0
                 if store is not None:
