@@ -288,9 +288,9 @@ def test_quantiles_from_the_bounded_subset(normal_form):
         def __getattr__(self, name):
             return getattr(normal_form, name)
 
-        def batch(self, inputs, threads=None):
+        def batch(self, inputs, threads=None, **options):  # options: out= buffers
             sizes.append(len(next(iter(inputs.values()))))
-            return normal_form.batch(inputs, threads=threads)
+            return normal_form.batch(inputs, threads=threads, **options)
 
     keep = 20_000
     result = run_robustness(
@@ -404,11 +404,11 @@ def test_ctrl_c_returns_the_partial_result(normal_form):
         def __getattr__(self, name):
             return getattr(normal_form, name)
 
-        def batch(self, inputs, threads=None):
+        def batch(self, inputs, threads=None, **options):  # options: out= buffers
             calls.append(1)
             if len(calls) == 3:
                 os.kill(os.getpid(), signal.SIGINT)
-            return normal_form.batch(inputs, threads=threads)
+            return normal_form.batch(inputs, threads=threads, **options)
 
     before = signal.getsignal(signal.SIGINT)
     result = run_robustness(
