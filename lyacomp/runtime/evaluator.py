@@ -276,15 +276,17 @@ class Evaluator:
         getattr(self.lib, f"{PREFIX}_prepare_start")(
             self._nominal, self._guess, self._options, self._start
         )
-        self._scalar = self._scalar_plan()
+        self._prepare_scalar()
 
-    def _scalar_plan(self) -> tuple:
-        """What the keyword fast path of __call__ reads, in one attribute (one load instead
-        of ten): the C entry; its arguments at nominal values; the same by name (the call
-        context under the key ``_CALL``), their count and the getter that puts such a
-        mapping in argument order; the context of a call from the guesses; the results'
-        shared context; the search of a call at the nominal guess; the bifurcation
-        parameter."""
+    def _prepare_scalar(self) -> None:
+        """The guess-based scalar call: the C entry (``_entry``, called with a call context
+        and the parameters), the contexts of a warm start and of a start from the guesses
+        (``_warm``, ``_cold``), and ``_scalar``: what the keyword fast path of __call__
+        reads, in one attribute (one load instead of ten): the entry; its arguments at
+        nominal values; the same by name (the call context under the key ``_CALL``), their
+        count and the getter that puts such a mapping in argument order; the context of a
+        call from the guesses; the results' shared context; the search of a call at the
+        nominal guess; the bifurcation parameter."""
         ffi = self.ffi
         entry = getattr(self.lib, f"{PREFIX}_evaluate_values", None)
         if entry is None:  # no parameters, or too many for an argument list (api.h.j2)
@@ -294,8 +296,9 @@ class Evaluator:
             warm, cold = ffi.new(f"{PREFIX}_call *"), ffi.new(f"{PREFIX}_call *")
             for call, start in ((warm, self._start), (cold, self._null)):
                 call.state_guess, call.start, call.opt = self._guess, start, self._options
+        self._entry, self._warm, self._cold = entry, warm, cold
         defaults = {_CALL: warm, **dict(zip(self.parameters, self._nominal))}
-        return (
+        self._scalar = (
             entry,
             (warm, *self._nominal),
             defaults,
@@ -453,9 +456,10 @@ class Evaluator:
         method = op.chosen_search(self, search, operating)
         if params is not None:
             values = _names(params, values, "parameters")
-        # The parameters go to C as a list (cffi passes it as a temporary array, so threads
-        # sharing the evaluator share no buffer), the nominal ones as the read-only buffer.
-        # The result struct is the HopfResult's own storage, read field by field when asked.
+        # The operating search takes the parameters as a list (cffi passes it as a temporary
+        # array, so threads sharing the evaluator share no buffer), the nominal ones as the
+        # read-only buffer; the guess-based search as arguments of the C entry. The result
+        # struct is the HopfResult's own storage, read field by field when asked.
         if values:
             p = row = self._nominal.copy()
             index = self._index
@@ -469,23 +473,25 @@ class Evaluator:
         else:
             row, p = self._nominal, self._c_nominal
         if method != "operating":
-            start = self._null if self.bifurcation in values else self._start
+            call = self._cold if self.bifurcation in values else self._warm
             guess = None if self._bif_index is None else row[self._bif_index]
-            return self._guess_call(p, guess, start, l2)
+            return self._guess_call(row, guess, call, l2)
         res = self.ffi.new(self._result_type)
         result = self._call_operating(p, row, operating, res)
         if l2 or (res.criticality == _DEGENERATE and self._has_l2):
             self._second_coefficient(p, res, result)
         return result
 
-    def _guess_call(self, p: Any, guess: float | None, start: Any, l2: bool = False) -> HopfResult:
-        """The guess-based search at parameters ``p`` (a list or C buffer) from ``start`` (the
-        nominal solution, or NULL: the guesses); l2 when asked for or l1 is degenerate."""
-        res = self.ffi.new(self._result_type)
-        self._evaluate(p, self._guess, start, self._options, res)
+    def _guess_call(
+        self, row: list[float], guess: float | None, call: Any, l2: bool = False
+    ) -> HopfResult:
+        """The guess-based search at parameters ``row`` with the call context ``call`` (from
+        the nominal solution, ``_warm``, or from the guesses, ``_cold``); l2 when asked for
+        or l1 is degenerate."""
+        res = self._entry(call, *row)
         result = HopfResult._fresh(res, self._context, guess)
         if l2 or (res.criticality == _DEGENERATE and self._has_l2):
-            self._second_coefficient(p, res, result)
+            self._second_coefficient(row or self._c_nominal, res, result)
         return result
 
     def _call_operating(self, p: Any, row: Any, operating: Any, res: Any) -> HopfResult:
