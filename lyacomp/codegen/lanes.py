@@ -28,11 +28,11 @@ VECTOR_MATH = {"exp": 1, "log": 1, "sin": 1, "cos": 1, "tanh": 1, "pow": 2}
 class LaneCode:
     """Lane blocks of one model and the libm functions (name, arity) they call.
 
-    ``f_jac`` and ``linear`` (the reduced Hopf Newton's) are None for a model with a
-    closed-form critical value, which has ``critical_value`` and ``equilibrium`` instead;
-    ``hopf_point`` is the evaluation at the Hopf point (Jacobian and derivatives)."""
+    ``linear`` (the reduced Hopf Newton's: residual, Jacobian and what its derivatives
+    need) is None for a model with a closed-form critical value, which has
+    ``critical_value`` and ``equilibrium`` instead; ``hopf_point`` is the evaluation at
+    the Hopf point (Jacobian and derivatives)."""
 
-    f_jac: Block | None
     linear: Block | None
     hopf_point: Block
     b_form: tuple[str, ...]
@@ -165,7 +165,6 @@ def _lane_form_special(
 
 
 def lane_code(
-    f_jac: Block,
     linear: Block | None,
     hopf_point: Block,
     b_form: tuple[Accumulation, ...],
@@ -181,12 +180,9 @@ def lane_code(
     def lanes_of(block: Block | None) -> Block | None:
         return _lane_block(block, prefix, used) if block is not None else None
 
-    # The lane Newton's residual (a closed-form model has no Newton in lanes).
-    f_jac_lanes = lanes_of(f_jac if linear is not None else None)
     linear_lanes, point_lanes = map(lanes_of, (linear, hopf_point))
     critical_lanes, equilibrium_lanes = map(lanes_of, (critical_value, equilibrium))
     return LaneCode(
-        f_jac_lanes,
         linear_lanes,
         point_lanes,
         _lane_form(b_form, prefix),

@@ -121,7 +121,6 @@ def render(
     lanes = None
     if ((reduced and lowered.linear) or closed_form) and lowered.hopf_point is not None:
         lanes = lane_code(
-            lowered.f_jac,
             lowered.linear if reduced else None,
             lowered.hopf_point,
             lowered.b_form,
@@ -171,7 +170,6 @@ def render(
         "n_delays": lowered.n_delays,
         "reduced": reduced,
         "lanes": lanes is not None,
-        "lanes_f_jac": lanes.f_jac if lanes else None,
         "lanes_linear": lanes.linear if lanes else None,
         "lanes_critical_value": lanes.critical_value if lanes else None,
         "lanes_equilibrium": lanes.equilibrium if lanes else None,
