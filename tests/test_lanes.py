@@ -93,6 +93,25 @@ def test_lanes_agree_with_scalar_path_on_random_reference_family(lanes):
     assert _assert_same(ev, values) > 0
 
 
+@pytest.mark.parametrize("model", ["m2_towed_sensor", "m3_servo_integral"])
+def test_lane_results_do_not_depend_on_the_samples_beside_them(model):
+    # Common practice, no source: a sample's result must not depend on how the batch is
+    # grouped into blocks of lanes. 2400 samples (a multiple of every lane width, so each
+    # sample runs in a full block in either order), evaluated in order and in a random
+    # order: the same bits. A choice made per block (a start, a step rule) fails this.
+    ev = lyacomp.compile(BENCH_MODELS / f"{model}.toml")
+    values = _samples(ev, 2400, 0.2, seed=8)
+    order = np.random.default_rng(9).permutation(2400)
+    first = ev.batch(values, threads=1)
+    again = ev.batch({k: v[order] for k, v in values.items()}, threads=1)
+    assert int(first.ok.sum()) > 2000
+    for name in ("status", "criticality", "cycle_side", "unstable_count", "stable_side"):
+        assert np.array_equal(getattr(first, name)[order], getattr(again, name)), name
+    for name in (*SCALARS, *VECTORS):
+        a, b = getattr(first, name)[order], getattr(again, name)
+        assert np.array_equal(a, b, equal_nan=True), (name, np.flatnonzero(a != b)[:5])
+
+
 def test_lane_width_setting_is_checked(monkeypatch):
     # Common practice, no source: a setting outside its choices is a user error.
     monkeypatch.setenv("LYACOMP_LANES", "3")
