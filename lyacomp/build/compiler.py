@@ -12,6 +12,7 @@ import subprocess
 import sys
 import sysconfig
 import tempfile
+import threading
 import time
 from concurrent.futures import Future, ThreadPoolExecutor
 from dataclasses import dataclass, field
@@ -407,22 +408,37 @@ def _finish(proc: subprocess.Popen, cmd: list[str], source: Path, deadline: floa
 _TIMEOUT = 600.0
 
 
-class Compilation:
-    """Compiler runs of the units of one library, started at once and run side by side.
+def compile_jobs() -> int:
+    """How many compiler runs of one library may run at once: the usable cores."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):  # pragma: no cover - platforms without affinity
+        return max(1, os.cpu_count() or 1)
 
-    :meth:`add` starts a unit's compiler and returns (so Python can prepare the next
-    unit meanwhile); :meth:`link` waits for all of them and links the library.
+
+class Compilation:
+    """Compiler runs of the units of one library, run side by side, at most ``jobs`` at once.
+
+    :meth:`add` queues a unit and returns at once (so Python can prepare the next unit
+    meanwhile); units start in the order added. :meth:`link` waits for all of them and
+    links the library. The first unit to fail stops the others; :meth:`link` then raises
+    its error and links nothing.
     """
 
-    def __init__(self, tc: Toolchain) -> None:
+    def __init__(self, tc: Toolchain, jobs: int | None = None) -> None:
         self._tc = tc
-        self._running: list[tuple[subprocess.Popen, list[str], Path]] = []
         self._objects: list[Path] = []
+        self._futures: list[Future[None]] = []
+        self._procs: list[subprocess.Popen] = []
+        self._lock = threading.Lock()
+        self._failure: BaseException | None = None
+        self._closed = False
+        self._pool = ThreadPoolExecutor(max_workers=max(1, jobs or compile_jobs()))
         self._start = time.perf_counter()
         self._deadline = time.monotonic() + _TIMEOUT
 
     def add(self, unit: Unit) -> None:
-        """Start compiling ``unit`` to its object file."""
+        """Queue compiling ``unit`` to its object file."""
         cmd = [
             *self._tc.command,
             *unit.flags,
@@ -431,30 +447,57 @@ class Compilation:
             "-o",
             str(unit.output),
         ]
-        try:
-            proc = _start(cmd, unit.source)
-        except CompilerNotFoundError:
-            self._stop()
-            raise
-        self._running.append((proc, cmd, unit.source))
         self._objects.append(unit.output)
+        self._futures.append(self._pool.submit(self._run, cmd, unit.source))
 
-    def _stop(self) -> None:
-        for proc, _, _ in self._running:
-            proc.kill()
-            proc.communicate()
-        self._running.clear()
+    def _run(self, cmd: list[str], source: Path) -> None:
+        with self._lock:
+            if self._failure is not None or self._closed:
+                return  # another unit failed, or the build was abandoned: not started
+            try:
+                proc = _start(cmd, source)
+            except CompilerNotFoundError as exc:
+                self._fail(exc)
+                return
+            self._procs.append(proc)
+        try:
+            _finish(proc, cmd, source, self._deadline)
+        except (BuildError, OSError) as exc:
+            with self._lock:
+                self._fail(exc)  # a unit killed because another failed is not reported
+
+    def _fail(self, exc: BaseException) -> None:
+        """Record the first failure and kill the runs still going (call with the lock)."""
+        if self._failure is None:
+            self._failure = exc
+        for proc in self._procs:
+            if proc.poll() is None:
+                proc.kill()
+
+    def close(self) -> None:
+        """Stop the runs still going or queued (none are left after :meth:`link`) and
+        release the workers."""
+        with self._lock:
+            self._closed = True
+            for proc in self._procs:
+                if proc.poll() is None:
+                    proc.kill()
+        self._pool.shutdown(wait=True)
 
     def link(self, output: Path) -> float:
         """Wait for every unit, link them into the shared library ``output``; returns the
-        seconds since the first unit started. A failing unit stops the others."""
+        seconds since the first unit was added."""
         try:
-            while self._running:
-                proc, cmd, source = self._running[0]
-                _finish(proc, cmd, source, self._deadline)
-                self._running.pop(0)
+            for future in self._futures:
+                future.result()
+        except BaseException as exc:  # interrupted while waiting: stop the compilers
+            with self._lock:
+                self._fail(exc)
+            raise
         finally:
-            self._stop()
+            self._pool.shutdown(wait=True)
+        if self._failure is not None:
+            raise self._failure
         cmd = [
             *self._tc.command,
             *self._tc.compile_flags,

@@ -38,33 +38,45 @@ def module_name(key: str) -> str:
 def build_extension(sources: CSources, tc: Toolchain, build_dir: Path, key: str) -> dict[str, Any]:
     """Write the C files into ``build_dir`` and compile the extension there.
 
-    Two translation units, compiled side by side and then linked: the model
-    (``model.c``, the same file ``lyacomp emit`` writes, at the full flags) and the cffi
-    wrapper, which only includes ``model.h`` (at :func:`wrapper_flags`). The model's
-    symbols are hidden: the library exports nothing but the module's init function.
-    Returns the metadata that describes the build.
+    The model's translation units and the cffi wrapper are compiled side by side (at
+    most as many compiler runs at once as there are usable cores) and then linked. The
+    model is ``model.c`` (the file ``lyacomp emit`` writes) or, when the sources come in
+    parts, ``model_<part>.c`` for each part (``model.c`` is still written, for the reader),
+    at the full flags; the wrapper only includes ``model.h`` (at :func:`wrapper_flags`).
+    The model's symbols are hidden: the library exports nothing but the module's init
+    function. Returns the metadata that describes the build.
     """
     name = module_name(key)
     model_c = build_dir / "model.c"
     model_c.write_text(sources.standalone, encoding="utf-8")
     (build_dir / "model.h").write_text(sources.header, encoding="utf-8")
-    ffi = cffi.FFI()
-    try:
-        ffi.cdef(sources.cdef)
-    except cffi.CDefError as exc:  # a template bug, not user input
-        raise BuildError(f"internal error in the generated declarations: {exc}") from exc
+    units = [model_c]
+    if sources.parts:
+        units = [build_dir / f"model_{part}.c" for part, _ in sources.parts]
+        for path, (_, text) in zip(units, sources.parts):
+            path.write_text(text, encoding="utf-8")
     model_flags = (*tc.compile_flags, "-fvisibility=hidden")
     job = Compilation(tc)
-    # The model is most of the compiler's work: it starts before cffi writes the wrapper.
-    job.add(Unit(model_c, build_dir / "model.o", model_flags))
-    ffi.set_source(name, '#include "model.h"\n')
-    wrapper = build_dir / f"{name}.c"
-    with contextlib.redirect_stdout(io.StringIO()):  # cffi announces the file it writes
-        ffi.emit_c_code(str(wrapper))
-    cold = (*wrapper_flags(tc), *(f"-I{d}" for d in python_include_dirs()))
-    job.add(Unit(wrapper, build_dir / f"{name}.o", cold))
-    library = build_dir / f"{name}{shared_library_suffix()}"
-    seconds = job.link(library)
+    try:
+        # The model is most of the compiler's work: it starts before cffi parses the
+        # declarations and writes the wrapper.
+        for path in units:
+            job.add(Unit(path, path.with_suffix(".o"), model_flags))
+        ffi = cffi.FFI()
+        try:
+            ffi.cdef(sources.cdef)
+        except cffi.CDefError as exc:  # a template bug, not user input
+            raise BuildError(f"internal error in the generated declarations: {exc}") from exc
+        ffi.set_source(name, '#include "model.h"\n')
+        wrapper = build_dir / f"{name}.c"
+        with contextlib.redirect_stdout(io.StringIO()):  # cffi announces the file it writes
+            ffi.emit_c_code(str(wrapper))
+        cold = (*wrapper_flags(tc), *(f"-I{d}" for d in python_include_dirs()))
+        job.add(Unit(wrapper, build_dir / f"{name}.o", cold))
+        library = build_dir / f"{name}{shared_library_suffix()}"
+        seconds = job.link(library)
+    finally:
+        job.close()
     return {
         "module": name,
         "library": library.name,

@@ -18,6 +18,10 @@ from .lanes import VECTOR_MATH, lane_code, lane_sensitivity
 from .lower import Lowered
 from .lower_higher import LoweredHigher
 from .lower_sensitivity import SensitivityLowered
+from .parts import IMPORTS_MARKER, link_parts
+
+PARTS = ("core", "lanes")
+"""The translation units of a library whose model has lane stages (``model.c.j2``)."""
 
 
 def templates_dir() -> Path:
@@ -55,6 +59,9 @@ class CSources:
 
     ``embedded`` carries its own declarations (built through cffi); ``standalone``
     includes ``header`` instead (for ``lyacomp emit``); ``cdef`` is what cffi exposes.
+    ``parts``: ``standalone`` cut into translation units that the library build compiles
+    side by side (name, C text; each includes ``header``), or empty: ``standalone`` is
+    the one unit.
     """
 
     embedded: str
@@ -62,6 +69,7 @@ class CSources:
     header: str
     cdef: str
     prefix: str
+    parts: tuple[tuple[str, str], ...] = ()
 
 
 _KEY = re.compile(r"[0-9a-f]{16,64}")
@@ -189,12 +197,24 @@ def render(
         # sharing linear algebra, Newton, results and the driver with the ODE kernel.
         context.update(delays=lowered.delays, reduced=True)
     source = env.get_template("delay_model.c.j2" if lowered.n_delays else "model.c.j2")
+    parts: tuple[tuple[str, str], ...] = ()
+    if lanes is not None:
+        # The lane stages are about half of the C compiler's work on these models: a unit
+        # of their own compiles beside the scalar stages.
+        texts = {
+            part: source.render(
+                standalone=True, part=part, part_imports_marker=IMPORTS_MARKER, **context
+            )
+            for part in PARTS
+        }
+        parts = tuple(link_parts(texts, prefix).items())
     return CSources(
-        embedded=source.render(standalone=False, **context),
-        standalone=source.render(standalone=True, **context),
+        embedded=source.render(standalone=False, part=None, **context),
+        standalone=source.render(standalone=True, part=None, **context),
         header=env.get_template("model.h.j2").render(**context),
         cdef=env.get_template("api.h.j2").render(**context),
         prefix=prefix,
+        parts=parts,
     )
 
 
