@@ -118,11 +118,55 @@ def _one(path: Path) -> dict:
         return json.loads(out.stdout.strip().splitlines()[-1])
 
 
+def _unit_cpu(cmd: list[str], cwd: Path) -> float:
+    """CPU seconds of one compiler run (run alone, so the figure is its own)."""
+    before = _cpu()
+    subprocess.run(cmd, cwd=cwd, check=True, capture_output=True)
+    return _cpu() - before
+
+
+def _units(path: Path, repeat: int) -> dict:
+    """The C compiler's CPU per translation unit of the plain library of ``path``.
+
+    The library's units are compiled again one at a time from a kept build (least CPU of
+    ``repeat`` runs each), beside the whole ``model.c`` as one unit (what a build compiled
+    before the split): on a machine with two free cores the compiler's wall time is about
+    the largest unit plus what queues behind it, whatever the load at measuring time.
+    """
+    with tempfile.TemporaryDirectory(prefix="lyacomp-units-") as cache:
+        env = {**os.environ, "LYACOMP_CACHE_DIR": cache, "LYACOMP_KEEP_BUILD": "1"}
+        subprocess.run(
+            [sys.executable, __file__, "--child", str(path)],
+            env=env,
+            check=True,
+            capture_output=True,
+        )
+        for meta_path in Path(cache).glob("*/*/meta.json"):
+            meta = json.loads(meta_path.read_text())
+            if meta.get("variant") == "plain":
+                break
+        entry = meta_path.parent
+        parts = sorted(entry.glob("model_*.c"))
+        wrapper = entry / f"{meta['module']}.c"
+        units = {p.stem: (meta["flags"], p) for p in parts} | {
+            "wrapper": (meta["wrapper_flags"], wrapper)
+        }
+        units["whole model.c"] = (meta["flags"], entry / "model.c")
+        out = {}
+        for name, (flags, source) in units.items():
+            cmd = [*meta["compiler"], *flags, "-c", str(source), "-o", os.devnull]
+            out[name] = min(_unit_cpu(cmd, entry) for _ in range(repeat))
+        return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--repeat", type=int, default=1, help="runs per model (min is shown)")
     parser.add_argument("--ring", type=int, default=32, help="states of the M4 ring (0: skip)")
     parser.add_argument("--only", nargs="*", help="labels to run (M1 M2 M3 M4)")
+    parser.add_argument(
+        "--units", action="store_true", help="the compiler's CPU per translation unit instead"
+    )
     parser.add_argument("--child", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
@@ -131,10 +175,27 @@ def main() -> None:
     sys.path.insert(0, str(HERE))
     from bench_models import model_path
 
+    if args.units:
+        print(f"load average at start: {os.getloadavg()[0]:.2f}")
+        print("| model | unit | compiler CPU s (least of --repeat runs) |")
+        print("|---|---|---|")
+        with tempfile.TemporaryDirectory(prefix="lyacomp-ring-") as work:
+            for label in args.only or ["M1", "M2", "M3"]:
+                for name, cpu in _units(model_path(label, Path(work)), args.repeat).items():
+                    print(f"| {label} | {name} | {cpu:.2f} |", flush=True)
+        print(f"load average at end: {os.getloadavg()[0]:.2f}")
+        return
+
     labels = ["M1", "M2", "M3"] + ([f"M4-{args.ring}"] if args.ring else [])
     if args.only:
         labels = [x for x in labels if x.split("-")[0] in args.only]
     print(f"load average at start: {os.getloadavg()[0]:.2f}")
+    sys.path.insert(0, str(ROOT))
+    from lyacomp.build.compiler import compile_jobs
+
+    # The model's units (core and lanes for M1-M3) and the wrapper compile side by side:
+    # on a busy machine the wall time depends on the cores the compiler runs get.
+    print(f"compiler runs at once: at most {compile_jobs()} (the usable cores)")
     print("| model | compile wall s | compile CPU s | its probe CPU s | twin wall s | twin CPU s |")
     print("|---|---|---|---|---|---|")
     shown = []
