@@ -4,8 +4,10 @@
 it. Every function of a part is ``static``, as in the whole model, except those another
 part calls: their definition and declarations lose ``static`` (the build hides them with
 ``-fvisibility=hidden``, so the library still exports nothing but its entry points), and
-the calling part gets their prototype, copied from the definition. A part thus compiles
-on its own and inlines everything it owns, exactly as the whole model does.
+the calling part gets their prototype, copied from the definition, and a copy of the
+enum constants and ``static const`` tables of other parts that it uses. A part thus
+compiles on its own and inlines everything it owns, exactly as the whole model does.
+Types are not copied: a part needs its typedefs in the shared head or in its own stages.
 """
 
 from __future__ import annotations
