@@ -15,7 +15,7 @@ from ..model import Model
 from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..status import Status
 from .lanes import VECTOR_MATH, lane_code, lane_sensitivity
-from .lower import Lowered
+from .lower import Block, Lowered, Statement
 from .lower_higher import LoweredHigher
 from .lower_sensitivity import SensitivityLowered
 from .parts import IMPORTS_MARKER, link_parts
@@ -195,7 +195,7 @@ def render(
     if lowered.n_delays:
         # Delay models: their own model functions and Hopf stages (characteristic matrix),
         # sharing linear algebra, Newton, results and the driver with the ODE kernel.
-        context.update(delays=lowered.delays, reduced=True)
+        context.update(delays=lowered.delays, reduced=True, **_delay_lanes(lowered, prefix))
     source = env.get_template("delay_model.c.j2" if lowered.n_delays else "model.c.j2")
     parts: tuple[tuple[str, str], ...] = ()
     if lanes is not None:
@@ -216,6 +216,40 @@ def render(
         prefix=prefix,
         parts=parts,
     )
+
+
+def _delay_lanes(lowered: Lowered, prefix: str) -> dict:
+    """The context of templates/delay_lanes.c.j2: the warm batch of a delay model with
+    one or two states and a bifurcation parameter solved by the reduced Newton runs in
+    SIMD lanes (its model functions, delays and B form as lane code). Three states stay
+    scalar: gcc fuses some complex products of that scalar Newton into multiply-add-subtract
+    instructions (its basic-block vectorizer, even without contraction), which the lanes'
+    vector types do not repeat, and the critical value moved by 2e-14 on a random model."""
+    if not (lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 2):
+        return {"lanes": False}
+    # lane_code turns every block it is given alike; the delays take the slot of the ODE
+    # models' reduced system, the curvature that of their Hopf-point block.
+    code = lane_code(lowered.f_jac, lowered.delays, lowered.curvature, lowered.b_form, (), prefix)
+    return {
+        "lanes": True,
+        "lanes_f_jac": _libm_lanes(code.f_jac, prefix),
+        "lanes_delays": _libm_lanes(code.linear, prefix),
+        "lanes_curvature": _libm_lanes(code.hopf_point, prefix),
+        "lanes_b_form": code.b_form,
+        "lane_functions": code.functions,
+    }
+
+
+def _libm_lanes(block: Block, prefix: str) -> Block:
+    """The delay lanes call libm lane by lane, never the vector math, so that they compute
+    what the scalar code computes: on the random models of tests/delay_models.py a one-ulp
+    difference of exp or cos (terms such as exp(u) - 1 - u are known to an ulp of 1 only)
+    moved the critical value by 3e-14."""
+
+    def one(s: Statement) -> Statement:
+        return Statement(s.target, s.code.replace(f"{prefix}_v_", f"{prefix}_lane_"))
+
+    return Block(tuple(map(one, block.temporaries)), tuple(map(one, block.outputs)))
 
 
 def vector_math_probe_source() -> str:
