@@ -21,7 +21,9 @@ The stability context is the same count as the compiled kernel's (templates/dela
 count_beside_pair): the argument principle for g = det Delta / (lambda^2 + omega^2) on the
 lines Re lambda = +-band, steps h_max = min(Y / 16, 0.5 / tau_max) halved where a step
 turns the phase by more than 0.5 rad or disagrees with the trapezoidal integral of
-Re g'/g, and the exact tail beyond Y = 1.01 max(R, omega) / sin(0.8 pi / (n + 1)). A sample
+Re g'/g, and the exact tail beyond Y = 1.01 max(R, omega) / sin(0.8 pi / (n + 1)). The
+vectorized baseline halves and doubles each sample's step locally, as the kernel does; the
+loop halves one sample's whole grid (one vectorized grid per sample). A sample
 is ok when both lines give the same count (no other root within the band); the line +band
 is scanned only when the grid of the line -band needed steps below 1000 band (as in the
 kernel: a root of the band forces steps below about 3 band on that line).
@@ -41,6 +43,7 @@ NEWTON_MAX_STEPS = 40
 NEWTON_TOL = 1e-13
 AXIS_TOL = 1e-8  # the band of the imaginary axis, relative to the rate (the kernel's default)
 MAX_HALVINGS = 40
+MAX_LEVELS = 48  # step halvings the stepped count allows (the kernel's LEVELS)
 
 
 def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndarray):
@@ -92,19 +95,78 @@ def _count_on_line(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndar
     return counts, used
 
 
-def unstable_count(A: np.ndarray, tau: np.ndarray, omega: np.ndarray) -> np.ndarray:
+def _count_stepped(A: np.ndarray, tau: np.ndarray, omega: np.ndarray, s: np.ndarray):
+    """The same count with the kernel's step control, per sample: each sample advances by
+    its own step h_max / 2^level, halved where a step fails the two tests and doubled
+    again after a kept step (so a sample that needs short steps near a root takes them
+    there only); all samples still on their line move together, one step per pass.
+    Returns the counts (-1: not resolved) and the shortest kept step of each sample."""
+    N, _, n, _ = A.shape
+    damp = np.exp(-s[:, None] * tau)
+    size = np.abs(A[:, 0]) + np.einsum("nk,nkij->nij", damp, np.abs(A[:, 1:]))
+    bound = np.abs(s) + size.sum(axis=2).max(axis=1)
+    y_end = 1.01 * np.maximum(bound, omega) / np.sin(0.8 * np.pi / (n + 1))
+    h_max = np.minimum(y_end / 16, 0.5 / tau.max(axis=1))
+    eye = np.eye(n)
+    ng = n - 2
+
+    def g_and_slope(idx: np.ndarray, lam: np.ndarray):
+        e = np.exp(-lam[:, None] * tau[idx])
+        blocks = A[idx, 1:]
+        delta = lam[:, None, None] * eye - A[idx, 0] - np.einsum("tk,tkab->tab", e, blocks)
+        dprime = eye + np.einsum("tk,tk,tkab->tab", e, tau[idx], blocks)
+        pair = lam**2 + omega[idx] ** 2
+        log_d = np.trace(np.linalg.solve(delta, dprime), axis1=1, axis2=2)
+        return np.linalg.det(delta) / pair, (log_d - 2 * lam / pair).real
+
+    y, turned, level = np.zeros(N), np.zeros(N), np.zeros(N, dtype=int)
+    shortest = h_max.copy()
+    g0, slope0 = g_and_slope(np.arange(N), s.astype(complex))
+    resolved = np.isfinite(g0) & (g0 != 0)
+    y_stop = y_end * (1 - 1e-12)
+    active = np.flatnonzero(resolved & (y < y_stop))
+    while len(active):
+        h = h_max[active] / 2.0 ** level[active]
+        g1, slope1 = g_and_slope(active, s[active] + 1j * (y[active] + h))
+        turn = np.angle(g1 / g0[active])
+        predicted = 0.5 * h * (slope0[active] + slope1)
+        smooth = (np.abs(turn) <= 0.5) & (np.abs(turn - predicted) <= 0.05 + 0.1 * np.abs(turn))
+        kept, refused = active[smooth], active[~smooth]
+        turned[kept] += turn[smooth]
+        y[kept] += h[smooth]
+        shortest[kept] = np.minimum(shortest[kept], h[smooth])
+        g0[kept], slope0[kept] = g1[smooth], slope1[smooth]
+        level[kept] = np.maximum(level[kept] - 1, 0)
+        level[refused] += 1
+        resolved[refused[level[refused] >= MAX_LEVELS]] = False  # a root on the line
+        active = active[resolved[active] & (y[active] < y_stop[active])]
+    at_end = np.arctan2(y, s)
+    turned += ng * (np.pi / 2 - at_end) - np.angle(g0 * np.exp(-1j * ng * at_end))
+    count = 0.5 * (ng - 2 * turned / np.pi)
+    whole = np.round(count)
+    good = resolved & (np.abs(count - whole) < 0.25)
+    return np.where(good, whole, -1).astype(int), shortest
+
+
+def unstable_count(
+    A: np.ndarray, tau: np.ndarray, omega: np.ndarray, stepped: bool = True
+) -> np.ndarray:
     """Roots right of the imaginary axis besides the pair +-i omega (-1 where another root
-    lies within the band of the axis or the count is not resolved)."""
+    lies within the band of the axis or the count is not resolved). ``stepped``: the step
+    control of the kernel per sample (the vectorized baseline); otherwise one grid per
+    sample, halved as a whole where it fails (the per-sample loop, where one vectorized
+    grid is the cheaper way in numpy)."""
+    count_on_line = _count_stepped if stepped else _count_on_line
     norms = np.sqrt(np.einsum("nkij,nkij->n", A, A))
     band = AXIS_TOL * np.maximum(norms, omega)
     # As in the kernel (spectrum_context): the line -band first; a root of the band would
     # have forced steps below about 3 band there, so only samples whose scan needed steps
     # below 1000 band scan the line +band.
-    wide, used = _count_on_line(A, tau, omega, -band)
+    wide, used = count_on_line(A, tau, omega, -band)
     right = wide.copy()
     again = ~(used > 1e3 * band)
     if again.any():
-        right[again] = _count_on_line(A[again], tau[again], omega[again], band[again])[0]
+        right[again] = count_on_line(A[again], tau[again], omega[again], band[again])[0]
     return np.where((right >= 0) & (right == wide), right, -1)
 
 
@@ -477,7 +539,7 @@ class LoopDelayHopf:
         rot = sum(tau_mu[k] * np.exp(-iw * tau[k]) * (A[k + 1] @ q) for k in range(m))
         jq = np.array(self.J_mu(*args), dtype=float) @ Q
         trans = np.vdot(pv, jq + B(stack(dx, 0.0), Q) - iw * rot).real
-        count = int(unstable_count(A[None], tau[None], np.array([omega]))[0])
+        count = int(unstable_count(A[None], tau[None], np.array([omega]), stepped=False)[0])
         return {
             "ok": count >= 0,
             "unstable_count": count,
