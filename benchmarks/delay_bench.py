@@ -17,8 +17,8 @@ roots right of the imaginary axis (the same argument-principle count).
 Each baseline starts from the nominal Hopf point plus the first-order correction
 dz/dp (p - p0) (both solved once, outside the timing), as the compiled evaluator does.
 Reports samples per second by wall and by CPU time (median over repeats; the machine is
-shared), the ratios (targets: compiled >= 10x numpy, >= 1000x the scipy loop), and the
-largest disagreement between the three on the shared samples.
+shared), the ratios (targets: compiled >= 10x numpy, >= 1000x the scipy loop, judged on
+the CPU-time ratio), and the largest disagreement between the three on the shared samples.
 """
 
 from __future__ import annotations
@@ -150,7 +150,9 @@ def main() -> None:
     for label, target in TARGETS.items():
         wall = rates["compiled"]["rate"] / rates[label]["rate"]
         cpu = rates["compiled"]["cpu_rate"] / rates[label]["cpu_rate"]
-        verdict = "meets" if min(wall, cpu) >= target else "MISSES"
+        # Decided by CPU time: the machine is shared (cores used is often 0.2), and the
+        # wall-time ratio then follows the load more than the code (project rules).
+        verdict = "meets" if cpu >= target else "MISSES"
         print(
             f"compiled / {label}: {wall:.1f}x (wall), {cpu:.1f}x (CPU); target {target:g}x: "
             f"{verdict}"
