@@ -227,13 +227,16 @@ def _delay_lanes(lowered: Lowered, prefix: str) -> dict:
     vector types do not repeat, and the critical value moved by 2e-14 on a random model."""
     if not (lowered.bif_index >= 0 and lowered.critical_value is None and lowered.n <= 2):
         return {"lanes": False}
-    # lane_code turns every block it is given alike; the delays take the slot of the ODE
-    # models' reduced system, the curvature that of their Hopf-point block.
-    code = lane_code(lowered.f_jac, lowered.delays, lowered.curvature, lowered.b_form, (), prefix)
+    # lane_code turns every block it is given alike: F and its Jacobian take the slot of
+    # the ODE models' reduced system, the curvature that of their Hopf-point block, the
+    # delays that of a closed-form critical value.
+    code = lane_code(
+        lowered.f_jac, lowered.curvature, lowered.b_form, (), prefix, critical_value=lowered.delays
+    )
     return {
         "lanes": True,
-        "lanes_f_jac": _libm_lanes(code.f_jac, prefix),
-        "lanes_delays": _libm_lanes(code.linear, prefix),
+        "lanes_f_jac": _libm_lanes(code.linear, prefix),
+        "lanes_delays": _libm_lanes(code.critical_value, prefix),
         "lanes_curvature": _libm_lanes(code.hopf_point, prefix),
         "lanes_b_form": code.b_form,
         "lane_functions": code.functions,
