@@ -23,6 +23,7 @@ import pytest
 
 import lyacomp
 from lyacomp.config import BuildConfig
+from tests.lane_checks import draw_around
 from tests.test_derivatives import NONLINEAR_MU
 from tests.test_reference_mpmath import build_family, draw_parameters
 
@@ -37,12 +38,7 @@ def _compile(model, lanes: int) -> lyacomp.Evaluator:
 
 
 def _samples(ev: lyacomp.Evaluator, count: int, spread: float, seed: int) -> dict:
-    rng = np.random.default_rng(seed)
-    values = {
-        name: nominal * (1.0 + rng.uniform(-spread, spread, count))
-        for name, nominal in ev.nominal.items()
-        if name != ev.bifurcation
-    }
+    values = draw_around(ev, count, spread, seed)
     values[next(iter(values))][3] = np.nan  # no Hopf point: its block mixes both stages
     return values
 

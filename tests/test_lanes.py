@@ -23,12 +23,10 @@ import pytest
 import lyacomp
 from lyacomp.config import BuildConfig
 from lyacomp.errors import LyacompError
+from tests.lane_checks import SCALARS, VECTORS, assert_batch_matches_single, draw_around
 from tests.test_reference_mpmath import build_family, draw_parameters
 
 BENCH_MODELS = Path(__file__).resolve().parent.parent / "benchmarks" / "models"
-RTOL = 1e-14
-SCALARS = ("l1", "omega", "period", "critical_value", "transversality")
-VECTORS = ("equilibrium", "amplitude")
 
 
 def _config(lanes: int) -> BuildConfig:
@@ -36,12 +34,7 @@ def _config(lanes: int) -> BuildConfig:
 
 
 def _samples(ev: lyacomp.Evaluator, count: int, spread: float, seed: int) -> dict:
-    rng = np.random.default_rng(seed)
-    values = {
-        name: nominal * (1.0 + rng.uniform(-spread, spread, count)) + rng.normal(0, 1e-3, count)
-        for name, nominal in ev.nominal.items()
-        if name != ev.bifurcation
-    }
+    values = draw_around(ev, count, spread, seed, jitter=1e-3)
     first = next(iter(values))
     values[first][5] = np.nan  # leaves the fast path: non-finite input
     values[first][11] = np.inf
@@ -50,26 +43,7 @@ def _samples(ev: lyacomp.Evaluator, count: int, spread: float, seed: int) -> dic
 
 def _assert_same(ev: lyacomp.Evaluator, values: dict) -> int:
     """Batch (lanes) against one scalar call per sample; returns the number of ok samples."""
-    batch = ev.batch(values, threads=1)
-    count = len(next(iter(values.values())))
-    for i in range(count):
-        one = ev({k: float(v[i]) for k, v in values.items()})
-        assert int(one.status_code) == int(batch.status[i]), (i, one.status)
-        if not one.ok:
-            continue
-        raw = one._raw  # the C result struct: the integer codes as the batch holds them
-        for name in ("criticality", "cycle_side", "stable_side", "unstable_count"):
-            assert getattr(raw, name) == int(getattr(batch, name)[i]), (i, name)
-        for name in SCALARS:
-            a, b = getattr(one, name), float(getattr(batch, name)[i])
-            # l1 is a sum of terms that cancel: a few ulp of difference in the vector math
-            # are relative to the size of those terms (l1_scale), not to l1.
-            scale = max(abs(a), abs(b), raw.l1_scale if name == "l1" else 0.0)
-            assert abs(a - b) <= RTOL * scale, (i, name, a, b)
-        for name in VECTORS:
-            a, b = np.array(list(getattr(one, name).values())), getattr(batch, name)[i]
-            assert np.max(np.abs(a - b)) <= RTOL * np.max(np.abs(a)), (i, name, a, b)
-    return int(batch.ok.sum())
+    return int(assert_batch_matches_single(ev, values).ok.sum())
 
 
 @pytest.mark.parametrize("lanes", [0, 1, 2])
