@@ -70,7 +70,9 @@ def _is_constant(code: str) -> bool:
     return not any(m.group("name") for m in _TOKEN.finditer(code))
 
 
-def _lane_expr(code: str, prefix: str, used: dict[str, int]) -> str:
+def _lane_expr(code: str, prefix: str, used: dict[str, int], calls: str = "v") -> str:
+    """``code`` on lane values; a libm function ``f`` becomes ``<prefix>_<calls>_f``:
+    ``v`` the vector math where the build found it, ``lane`` libm lane by lane."""
     out, pos = [], 0
     for m in _TOKEN.finditer(code):
         if m.start() < pos:
@@ -80,8 +82,8 @@ def _lane_expr(code: str, prefix: str, used: dict[str, int]) -> str:
         if name and after < len(code) and code[after] == "(":
             args, end = _split_call(code, after)
             used[name] = len(args)
-            lanes = [_spread(_lane_expr(a, prefix, used), prefix, a) for a in args]
-            out.append(f"{prefix}_v_{name}({', '.join(lanes)})")
+            lanes = [_spread(_lane_expr(a, prefix, used, calls), prefix, a) for a in args]
+            out.append(f"{prefix}_{calls}_{name}({', '.join(lanes)})")
             pos = end
         else:
             out.append(m.group(0))
@@ -93,9 +95,9 @@ def _spread(lane_code: str, prefix: str, original: str) -> str:
     return f"{prefix}_splat({lane_code})" if _is_constant(original) else lane_code
 
 
-def _lane_block(block: Block, prefix: str, used: dict[str, int]) -> Block:
+def _lane_block(block: Block, prefix: str, used: dict[str, int], calls: str = "v") -> Block:
     def one(s: Statement) -> Statement:
-        return Statement(s.target, _spread(_lane_expr(s.code, prefix, used), prefix, s.code))
+        return Statement(s.target, _spread(_lane_expr(s.code, prefix, used, calls), prefix, s.code))
 
     return Block(tuple(map(one, block.temporaries)), tuple(map(one, block.outputs)))
 
@@ -172,13 +174,17 @@ def lane_code(
     prefix: str,
     critical_value: Block | None = None,
     equilibrium: Block | None = None,
+    vector_math: bool = True,
 ) -> LaneCode:
     """Lane versions of the model functions and multilinear forms of the lane stage (with
-    the closed-form critical value and equilibrium, when the model gives them)."""
+    the closed-form critical value and equilibrium, when the model gives them).
+    ``vector_math`` False: the model functions call libm lane by lane (``<prefix>_lane_f``),
+    so that the lanes compute exactly what the scalar code computes."""
     used: dict[str, int] = {}
+    calls = "v" if vector_math else "lane"
 
     def lanes_of(block: Block | None) -> Block | None:
-        return _lane_block(block, prefix, used) if block is not None else None
+        return _lane_block(block, prefix, used, calls) if block is not None else None
 
     linear_lanes, point_lanes = map(lanes_of, (linear, hopf_point))
     critical_lanes, equilibrium_lanes = map(lanes_of, (critical_value, equilibrium))

@@ -15,7 +15,7 @@ from ..model import Model
 from ..model.expr_parser import MAX_NAME_LENGTH, is_valid_name
 from ..status import Status
 from .lanes import VECTOR_MATH, lane_code, lane_sensitivity
-from .lower import Block, Lowered, Statement
+from .lower import Lowered
 from .lower_higher import LoweredHigher
 from .lower_sensitivity import SensitivityLowered
 from .parts import IMPORTS_MARKER, link_parts
@@ -230,29 +230,27 @@ def _delay_lanes(lowered: Lowered, prefix: str) -> dict:
     # lane_code turns every block it is given alike: F and its Jacobian take the slot of
     # the ODE models' reduced system, the curvature that of their Hopf-point block, the
     # delays that of a closed-form critical value.
+    # They call libm lane by lane, never the vector math, so that they compute what the
+    # scalar code computes: on the random models of tests/delay_models.py a one-ulp
+    # difference of exp or cos (terms such as exp(u) - 1 - u are known to an ulp of 1 only)
+    # moved the critical value by 3e-14.
     code = lane_code(
-        lowered.f_jac, lowered.curvature, lowered.b_form, (), prefix, critical_value=lowered.delays
+        lowered.f_jac,
+        lowered.curvature,
+        lowered.b_form,
+        (),
+        prefix,
+        critical_value=lowered.delays,
+        vector_math=False,
     )
     return {
         "lanes": True,
-        "lanes_f_jac": _libm_lanes(code.linear, prefix),
-        "lanes_delays": _libm_lanes(code.critical_value, prefix),
-        "lanes_curvature": _libm_lanes(code.hopf_point, prefix),
+        "lanes_f_jac": code.linear,
+        "lanes_delays": code.critical_value,
+        "lanes_curvature": code.hopf_point,
         "lanes_b_form": code.b_form,
         "lane_functions": code.functions,
     }
-
-
-def _libm_lanes(block: Block, prefix: str) -> Block:
-    """The delay lanes call libm lane by lane, never the vector math, so that they compute
-    what the scalar code computes: on the random models of tests/delay_models.py a one-ulp
-    difference of exp or cos (terms such as exp(u) - 1 - u are known to an ulp of 1 only)
-    moved the critical value by 3e-14."""
-
-    def one(s: Statement) -> Statement:
-        return Statement(s.target, s.code.replace(f"{prefix}_v_", f"{prefix}_lane_"))
-
-    return Block(tuple(map(one, block.temporaries)), tuple(map(one, block.outputs)))
 
 
 def vector_math_probe_source() -> str:
