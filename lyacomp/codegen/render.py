@@ -23,6 +23,10 @@ from .parts import IMPORTS_MARKER, link_parts
 PARTS = ("core", "lanes")
 """The translation units of a library whose model has lane stages (``model.c.j2``)."""
 
+VALUES_ENTRY_MAX = 64
+"""Most parameters the scalar entry ``<prefix>_evaluate_values`` takes as arguments; models
+with more (or none) have no such entry, and the scalar call passes an array."""
+
 
 def templates_dir() -> Path:
     """The C templates: inside the installed package, or at the top of a checkout."""
@@ -151,6 +155,7 @@ def render(
         "header_name": header_name,
         "n": lowered.n,
         "n_params": lowered.n_params,
+        "values_entry": 1 <= lowered.n_params <= VALUES_ENTRY_MAX,
         "bif_index": lowered.bif_index,
         "state_names": state_names,
         "param_names": param_names,
