@@ -74,7 +74,8 @@ class HopfResult:
     Numbers are NaN unless ``status == "ok"``.
     """
 
-    # Four slots, so that the scalar call can make one with four stores (see fresh_result).
+    # Four slots, so that the scalar call can make one with four stores (``_fresh``, and its
+    # copy inlined in ``Evaluator.__call__``'s fast path).
     __slots__ = ("_raw", "_context", "_search", "_extras")
 
     def __init__(
